@@ -175,7 +175,7 @@ def _cmd_listen(args: argparse.Namespace) -> int:
 
 def _cmd_devices(args: argparse.Namespace) -> int:
     from popmeter.capture import list_devices
-    from popmeter.terminal import print_devices
+    from popmeter.live_view import print_devices
 
     print_devices(list_devices())
     return EXIT_OK
