@@ -1,0 +1,835 @@
+"""Cycle-rate timeline of one run: cycles, smoothed rate, phases, stalls, summary.
+
+Input is the list of clicks found by :mod:`popmeter.detection`; output is a
+:class:`Timeline`. Everything is a pure computation on the click times (and,
+for the ring, the per-click ring estimates); nothing here reads audio.
+
+The steps (each one is defined precisely in the README, section "How the
+timeline is measured"):
+
+1. **Main clicks.** Only clicks of ``kind == 0`` make cycles, so a two-click
+   engine is counted once per cycle.
+2. **Extra clicks.** A main click closer to a neighbour than
+   ``extra_click_fraction`` of the local period is an extra (spurious) click;
+   of the two ends of such a short interval the one whose removal leaves the
+   more regular rhythm is dropped. An extra click therefore never shows up
+   as a doubled rate.
+3. **Cycles, missed clicks and stalls.** The local period is the rolling
+   median of the intervals between main clicks. An interval of about ``k``
+   local periods (``k`` = 2, 3, ... below ``stall_factor``) is ``k`` cycles
+   with ``k - 1`` missed clicks; the cycles whose own click was missed are
+   flagged (``Cycle.missed_clicks == 1``) and none of them shows a halved
+   rate. An interval of at least ``stall_factor`` local periods is a stall:
+   the engine stopped popping; it makes no cycle.
+4. **Smoothed rate.** A rolling median (``smoothing_cycles`` cycles, centred)
+   of the cycle rates.
+5. **Steady state.** The longest stretch of consecutive cycles whose smoothed
+   rate stays within +/- ``steady_tolerance_pct`` of the stretch's own median,
+   and at least ``steady_min_cycles`` cycles long.
+6. **Phases.** ``heating`` (recording start to first click), ``startup``
+   (first click to steady start), ``steady``, ``fade`` (steady end to last
+   click), ``after`` (silence after the last click).
+7. **Summary** with the keys of the ``popmeter.analysis/1`` schema; a value
+   that cannot be determined is ``None`` and the reason is in ``warnings``.
+"""
+
+from __future__ import annotations
+
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+from scipy import stats
+
+from popmeter.errors import UsageError
+
+__all__ = [
+    "PHASE_NAMES",
+    "SUMMARY_KEYS",
+    "Cycle",
+    "Phase",
+    "Stall",
+    "Timeline",
+    "build_timeline",
+    "rolling_median",
+]
+
+#: Summary keys, in the order of the README (``popmeter.analysis/1``), plus
+#: ``steady_rate_sem_hz`` (the uncertainty of the steady rate).
+SUMMARY_KEYS: tuple[str, ...] = (
+    "first_click_s",
+    "last_click_s",
+    "steady_start_s",
+    "steady_end_s",
+    "steady_rate_hz",
+    "steady_rate_iqr_hz",
+    "steady_rate_sem_hz",
+    "jitter_pct",
+    "drift_pct_per_min",
+    "stalls",
+    "cycles",
+    "run_s",
+    "time_to_steady_s",
+    "ignition_delay_s",
+    "ring_hz",
+    "diaphragm_stiffness_kpa_per_ml",
+)
+
+#: Phase names, in the order they occur in a complete run.
+PHASE_NAMES: tuple[str, ...] = ("heating", "startup", "steady", "fade", "after")
+
+_STEADY_KEYS = (
+    "steady_start_s",
+    "steady_end_s",
+    "steady_rate_hz",
+    "steady_rate_iqr_hz",
+    "steady_rate_sem_hz",
+    "jitter_pct",
+    "drift_pct_per_min",
+    "time_to_steady_s",
+)
+
+
+@dataclass
+class Cycle:
+    """One engine cycle.
+
+    Attributes
+    ----------
+    start_s : float
+        Time of the cycle's main click, seconds from the start of the
+        recording. For a cycle whose click was missed, the time interpolated
+        evenly inside the gap.
+    period_s : float
+        Duration of the cycle (s): time to the next main click, or the gap
+        divided by the number of cycles it holds.
+    rate_hz : float
+        ``1 / period_s``.
+    phase : str
+        Name of the phase holding ``start_s`` (see :data:`PHASE_NAMES`).
+    missed_clicks : int
+        1 when the main click starting this cycle was not heard (the cycle was
+        filled in inside a gap of about k periods), else 0. The sum over all
+        cycles is the number of missed main clicks.
+    """
+
+    start_s: float
+    period_s: float
+    rate_hz: float
+    phase: str
+    missed_clicks: int = 0
+
+
+@dataclass
+class Phase:
+    """One phase of the run, ``start_s`` to ``end_s`` (s from recording start)."""
+
+    name: str
+    start_s: float
+    end_s: float
+
+
+@dataclass
+class Stall:
+    """A silence inside the run: from the last click before it (``start_s``)
+    to the first click after it (``end_s``); ``duration_s = end_s - start_s``."""
+
+    start_s: float
+    end_s: float
+    duration_s: float
+
+
+@dataclass
+class Timeline:
+    """The cycle-rate timeline of one run.
+
+    Attributes
+    ----------
+    cycles : list of Cycle
+    phases : list of Phase
+        In time order; a phase that did not occur (no heating when the
+        recording starts mid-run, no steady state...) is absent.
+    stalls : list of Stall
+    summary : dict
+        Keys :data:`SUMMARY_KEYS`; SI units (s, Hz, %); ``None`` where the
+        value cannot be determined, with the reason in ``warnings``.
+    warnings : list of str
+    smoothed_rate : tuple of two numpy arrays
+        ``(times_s, rate_hz)``: the smoothed rate at each cycle start, for
+        plotting.
+    main_click_times_s : numpy array
+        Times (s) of the main clicks that made cycles (extra clicks removed).
+    extra_click_times_s : list of float
+        Main clicks set aside as extra (spurious) clicks.
+    missed_clicks : int
+        Main clicks filled in inside gaps of about k periods.
+    recording_starts_mid_run, recording_ends_mid_run : bool
+        Whether the recording began or ended while the engine was running.
+    """
+
+    cycles: list[Cycle]
+    phases: list[Phase]
+    stalls: list[Stall]
+    summary: dict[str, float | int | None]
+    warnings: list[str]
+    smoothed_rate: tuple[np.ndarray, np.ndarray] = field(
+        default_factory=lambda: (np.zeros(0), np.zeros(0))
+    )
+    main_click_times_s: np.ndarray = field(default_factory=lambda: np.zeros(0))
+    extra_click_times_s: list[float] = field(default_factory=list)
+    missed_clicks: int = 0
+    recording_starts_mid_run: bool = False
+    recording_ends_mid_run: bool = False
+
+    def phase(self, name: str) -> Phase | None:
+        """The phase called ``name``, or None when the run did not have it."""
+        for p in self.phases:
+            if p.name == name:
+                return p
+        return None
+
+
+# --------------------------------------------------------------------------- helpers
+
+
+def rolling_median(values: np.ndarray, window: int) -> np.ndarray:
+    """Centred rolling median of ``values`` over ``window`` points.
+
+    Near the ends the window shrinks symmetrically (the first value is its own
+    median, the second the median of three, ...), so the curve is not pulled
+    towards padding values. ``window`` is made odd. NaN values are ignored.
+    """
+    x = np.asarray(values, dtype=float)
+    n = x.size
+    if n == 0:
+        return x.copy()
+    half = max(0, int(window) // 2)
+    half = min(half, (n - 1) // 2)
+    out = np.empty(n)
+    if half == 0:
+        return x.copy()
+    win = np.lib.stride_tricks.sliding_window_view(x, 2 * half + 1)
+    with np.errstate(all="ignore"):
+        out[half : n - half] = np.nanmedian(win, axis=1)
+    for i in range(half):
+        out[i] = np.nanmedian(x[: 2 * i + 1])
+        out[n - 1 - i] = np.nanmedian(x[n - 1 - 2 * i :])
+    return out
+
+
+def _true_runs(mask: np.ndarray) -> np.ndarray:
+    """Start (inclusive) and stop (exclusive) index of every run of True, shape (k, 2)."""
+    m = np.concatenate(([False], np.asarray(mask, bool), [False]))
+    d = np.diff(m.astype(np.int8))
+    starts = np.flatnonzero(d == 1)
+    stops = np.flatnonzero(d == -1)
+    return np.column_stack((starts, stops))
+
+
+def _remove_extra_clicks(
+    times_s: np.ndarray, strength: np.ndarray, *, fraction: float, window: int
+) -> tuple[np.ndarray, np.ndarray, list[float]]:
+    """Drop main clicks that sit too close to a neighbour (spurious extras).
+
+    Returns the kept times, the kept strengths and the removed times. An
+    interval shorter than ``fraction`` of the local period (rolling median of
+    intervals) marks a pair; the click of the pair whose removal makes the
+    merged neighbouring intervals closest (in log ratio) to the local period is
+    removed (ties: the weaker click). Repeats until no short interval is left.
+    """
+    t = np.asarray(times_s, float).copy()
+    s = np.asarray(strength, float).copy()
+    removed: list[float] = []
+    for _ in range(t.size):
+        if t.size < 3:
+            break
+        d = np.diff(t)
+        local = rolling_median(d, window)
+        short = np.flatnonzero(d < fraction * local)
+        if short.size == 0:
+            break
+        # The shortest interval relative to its local period first.
+        i = int(short[np.argmin(d[short] / local[short])])
+        p = local[i]
+
+        c_i, c_j = _removal_cost(t, i, p), _removal_cost(t, i + 1, p)
+        if abs(c_i - c_j) < 1e-9:
+            drop = i if s[i] < s[i + 1] else i + 1
+        else:
+            drop = i if c_i < c_j else i + 1
+        removed.append(float(t[drop]))
+        t = np.delete(t, drop)
+        s = np.delete(s, drop)
+    return t, s, sorted(removed)
+
+
+def _removal_cost(t: np.ndarray, j: int, period_s: float) -> float:
+    """How far (|log ratio|) from ``period_s`` the interval that closes the
+    rhythm around click ``j`` would be once ``j`` is removed (``t.size >= 3``)."""
+    if 0 < j < t.size - 1:
+        new_gap = t[j + 1] - t[j - 1]
+    elif j == 0:
+        new_gap = t[2] - t[1]
+    else:
+        new_gap = t[-2] - t[-3]
+    return abs(math.log(max(float(new_gap), 1e-9) / period_s))
+
+
+def _block_sem_of_median(values: np.ndarray, blocks: int = 10) -> float | None:
+    """Standard error of the median by batch means over contiguous blocks.
+
+    The values are cut into ``blocks`` contiguous blocks; the standard error
+    is the standard deviation of the block medians over ``sqrt(blocks)``
+    (method of batch means; Flyvbjerg & Petersen, J. Chem. Phys. 91, 461,
+    1989). Contiguous blocks keep slow wander and correlated jitter in the
+    error instead of hiding them as independent samples would.
+    """
+    v = np.asarray(values, float)
+    v = v[np.isfinite(v)]
+    if v.size < 2 * blocks:
+        return None
+    parts = np.array_split(v, blocks)
+    med = np.array([np.median(p) for p in parts])
+    return float(np.std(med, ddof=1) / math.sqrt(blocks))
+
+
+def _theil_sen_slope(t: np.ndarray, y: np.ndarray, max_points: int = 1000) -> float:
+    """Theil-Sen slope of y against t (Sen, JASA 63, 1968; scipy.stats.theilslopes).
+
+    Above ``max_points`` points the data are first reduced to ``max_points``
+    contiguous block medians (time and value), which keeps the estimate
+    robust and the pairwise-slope count bounded (n^2 / 2).
+    """
+    t = np.asarray(t, float)
+    y = np.asarray(y, float)
+    if t.size > max_points:
+        tb = np.array([np.median(p) for p in np.array_split(t, max_points)])
+        yb = np.array([np.median(p) for p in np.array_split(y, max_points)])
+        t, y = tb, yb
+    return float(stats.theilslopes(y, t)[0])
+
+
+def _fmt(x: float) -> str:
+    return f"{x:.2f}"
+
+
+# --------------------------------------------------------------------------- main
+
+
+def build_timeline(
+    clicks: Sequence[Any],
+    *,
+    duration_s: float,
+    clicks_per_cycle: int,
+    ignition_at_s: float | None = None,
+    ring_hz: float | None = None,
+    steady_tolerance_pct: float = 5.0,
+    steady_edge_pct: float = 1.0,
+    steady_min_cycles: int = 50,
+    stall_factor: float = 2.5,
+    startup_stall_factor: float = 4.5,
+    smoothing_cycles: int = 9,
+    extra_click_fraction: float = 0.5,
+    recording_starts_mid_run: bool | None = None,
+    recording_ends_mid_run: bool | None = None,
+) -> Timeline:
+    """Build the cycle-rate timeline, phases, stalls and summary of one run.
+
+    Parameters
+    ----------
+    clicks : sequence of popmeter.detection.Click
+        The detected clicks (any order). Uses ``time_s``, ``kind``,
+        ``strength`` and ``ring_hz``; only ``kind == 0`` clicks make cycles.
+    duration_s : float
+        Length of the recording (s); bounds the ``after`` phase.
+    clicks_per_cycle : int
+        1 or 2, the detector's decision. With 2 the ``kind == 1`` clicks are
+        second clicks: they count for the first and last click of the run and
+        for the edges of stalls, but make no cycles.
+    ignition_at_s : float or None
+        Time in the recording (s) when the flame was lit; gives
+        ``ignition_delay_s``. Default None: no ignition delay.
+    ring_hz : float or None
+        The ring frequency found by the detector (Hz). Default None: the
+        median of the main clicks' own ``ring_hz`` is used when they carry one.
+    steady_tolerance_pct : float
+        Half-width (% of the stretch's median) of the band that finds the core
+        of the steady state. Default 5 %: wide enough for the smoothed rate of
+        an engine with a few % cycle-to-cycle jitter and a slow drift of a few
+        % over the run, narrow enough that start-up and fade are not steady
+        (common practice, no source).
+    steady_edge_pct : float
+        Floor (% of the steady rate) of the tighter band that places the
+        steady start and end: the core is trimmed at each end to the first
+        (last) cycle whose smoothed rate lies within
+        ``max(steady_edge_pct, 4 robust sd)`` of the core's trend line.
+        Default 1 %: a start-up ramp that approaches the steady rate
+        gradually is still start-up until it is within 1 % (common practice,
+        no source).
+    steady_min_cycles : int
+        Shortest steady core, in cycles. Default 50 (about 4 s at 12 Hz): a
+        shorter plateau is a pause in start-up or fade, not steady running
+        (common practice, no source).
+    stall_factor : float
+        Outside start-up, a gap between main clicks of at least this many
+        local periods is a stall; a shorter gap of about 2 periods is one
+        missed click. Default 2.5, halfway between a single missed click (2
+        periods) and the shortest silence that is more than one lost click
+        (3 periods) (common practice, no source).
+    startup_stall_factor : float
+        The same limit during start-up, where an engine sputters: gaps of
+        about 2, 3 or 4 periods are missed pops, not stalls. Default 4.5
+        (common practice, no source).
+    smoothing_cycles : int
+        Width of the rolling median of the rate (cycles). Default 9: removes
+        single-cycle outliers while following a start-up ramp within about
+        half a second at 10-20 Hz (common practice, no source).
+    extra_click_fraction : float
+        An interval shorter than this fraction of the local period marks an
+        extra click. Default 0.5: a real cycle is never half as long as its
+        neighbours (common practice, no source).
+    recording_starts_mid_run, recording_ends_mid_run : bool or None
+        Force whether the recording began (ended) while the engine was
+        running. Default None: decided from the silence before the first
+        (after the last) click, which must last at least ``stall_factor``
+        local periods to show that the engine was quiet.
+
+    Returns
+    -------
+    Timeline
+
+    Raises
+    ------
+    popmeter.errors.UsageError
+        ``clicks_per_cycle`` is not 1 or 2, ``duration_s`` is not positive,
+        ``ignition_at_s`` lies outside the recording, or an option is out of
+        range.
+    """
+    if clicks_per_cycle not in (1, 2):
+        raise UsageError(f"clicks_per_cycle must be 1 or 2, got {clicks_per_cycle!r}")
+    if not (duration_s > 0 and math.isfinite(duration_s)):
+        raise UsageError(f"duration_s must be a positive number of seconds, got {duration_s!r}")
+    if ignition_at_s is not None and not (0.0 <= ignition_at_s <= duration_s):
+        raise UsageError(
+            f"--ignition-at {ignition_at_s} s lies outside the recording (0 to {duration_s:.2f} s)"
+        )
+    if not 0 < steady_tolerance_pct < 100:
+        raise UsageError(
+            f"steady_tolerance_pct must be between 0 and 100, got {steady_tolerance_pct}"
+        )
+    if not 0 < steady_edge_pct <= steady_tolerance_pct:
+        raise UsageError(
+            f"steady_edge_pct must be above 0 and at most steady_tolerance_pct, got {steady_edge_pct}"
+        )
+    if steady_min_cycles < 3:
+        raise UsageError(f"steady_min_cycles must be at least 3, got {steady_min_cycles}")
+    if not 1.5 < stall_factor <= startup_stall_factor:
+        raise UsageError(
+            "stall_factor must be above 1.5 periods and at most startup_stall_factor, got "
+            f"{stall_factor} and {startup_stall_factor}"
+        )
+
+    warnings: list[str] = []
+    summary: dict[str, float | int | None] = {k: None for k in SUMMARY_KEYS}
+    tol = steady_tolerance_pct / 100.0
+    edge = steady_edge_pct / 100.0
+
+    main = sorted((c for c in clicks if int(c.kind) == 0), key=lambda c: float(c.time_s))
+    second = np.array(sorted(float(c.time_s) for c in clicks if int(c.kind) != 0))
+    if clicks_per_cycle == 1 and second.size:
+        warnings.append(
+            f"{second.size} clicks of kind 1 on a one-click engine were not used for cycles"
+        )
+        second = np.zeros(0)
+    t_raw = np.array([float(c.time_s) for c in main])
+    strength = np.array([float(getattr(c, "strength", 0.0) or 0.0) for c in main])
+
+    t, _, extra = _remove_extra_clicks(
+        t_raw, strength, fraction=extra_click_fraction, window=smoothing_cycles
+    )
+    if extra:
+        warnings.append(
+            f"{len(extra)} extra main click(s) closer than {extra_click_fraction:g} of the local "
+            f"period to a neighbour were set aside (first at {extra[0]:.3f} s)"
+        )
+
+    # First / last click: the main clicks, plus second clicks inside the run.
+    if t.size:
+        lo, hi = float(t[0]), float(t[-1])
+        if second.size and t.size > 1:
+            p0 = float(np.median(np.diff(t[:6])))
+            p1 = float(np.median(np.diff(t[-6:])))
+            inside = second[(second >= lo - p0) & (second <= hi + p1)]
+            if inside.size:
+                lo, hi = min(lo, float(inside[0])), max(hi, float(inside[-1]))
+        summary["first_click_s"] = lo
+        summary["last_click_s"] = hi
+        summary["run_s"] = hi - lo
+    else:
+        warnings.append(
+            "no main clicks: first_click_s, last_click_s, run_s and every rate metric are null"
+        )
+
+    # ----------------------------------------------------------- cycles, stalls
+    # Pass 1 uses the strict stall limit everywhere; pass 2 relaxes it before
+    # the steady start (or the rate peak) found in pass 1, then re-finds the
+    # steady state on the final cycles.
+    local = _local_period(t, smoothing_cycles)
+    factor = np.full(max(t.size - 1, 0), float(stall_factor))
+    cyc = _cycles_from_gaps(t, local, factor)
+    found = _steady_state(cyc, tol=tol, edge=edge, min_cycles=steady_min_cycles, w=smoothing_cycles)
+    if t.size >= 2:
+        boundary = found.start_s if found.core is not None else found.peak_s
+        relaxed = np.where(t[:-1] < boundary, float(startup_stall_factor), float(stall_factor))
+        if not np.array_equal(relaxed, factor):
+            cyc = _cycles_from_gaps(t, local, relaxed)
+            found = _steady_state(
+                cyc, tol=tol, edge=edge, min_cycles=steady_min_cycles, w=smoothing_cycles
+            )
+    starts, periods, missed = cyc.starts, cyc.periods, cyc.missed
+    rates = 1.0 / periods if periods.size else np.zeros(0)
+    smooth = found.smooth
+    n_cyc = int(starts.size)
+
+    stalls: list[Stall] = []
+    for a, b in cyc.stall_gaps:
+        t_a, t_b = float(t[a]), float(t[b])
+        within = second[(second > t_a) & (second < t_b)] if second.size else second
+        s0 = float(within[-1]) if within.size else t_a
+        stalls.append(Stall(start_s=s0, end_s=t_b, duration_s=t_b - s0))
+    n_missed = int(missed.sum())
+    if n_missed:
+        warnings.append(
+            f"{n_missed} missed main click(s) filled in inside gaps of about 2-4 periods "
+            "(each flagged on its cycle; the rate is not halved)"
+        )
+    summary["cycles"] = n_cyc
+    summary["stalls"] = len(stalls) if t.size else None
+    if stalls:
+        warnings.append(
+            f"{len(stalls)} stall(s): silences of at least {stall_factor:g} local periods "
+            f"inside the run (longest {max(s.duration_s for s in stalls):.2f} s)"
+        )
+
+    # ----------------------------------------------------------- steady state
+    steady = found.core
+    if steady is None:
+        if t.size:
+            why = (
+                f"only {n_cyc} cycles (fewer than {steady_min_cycles})"
+                if n_cyc < steady_min_cycles
+                else f"the smoothed rate never stayed within +/-{steady_tolerance_pct:g} % "
+                f"of its median for {steady_min_cycles} cycles"
+            )
+            warnings.append(
+                f"no steady state: {why}; steady_start_s, steady_end_s, steady_rate_hz, "
+                "steady_rate_iqr_hz, steady_rate_sem_hz, jitter_pct, drift_pct_per_min and "
+                "time_to_steady_s are null"
+            )
+    else:
+        i0, i1 = steady
+        summary["steady_start_s"] = float(starts[i0])
+        summary["steady_end_s"] = float(starts[i1 - 1] + periods[i1 - 1])
+        r_st = rates[i0:i1]
+        summary["steady_rate_hz"] = float(np.median(r_st))
+        q75, q25 = np.percentile(r_st, [75, 25])
+        summary["steady_rate_iqr_hz"] = float(q75 - q25)
+        summary["steady_rate_sem_hz"] = _block_sem_of_median(r_st)
+        if summary["steady_rate_sem_hz"] is None:
+            warnings.append("steady_rate_sem_hz is null: fewer than 20 steady cycles")
+        summary["jitter_pct"] = _jitter_pct(starts[i0:i1], periods[i0:i1], missed[i0:i1])
+        if summary["jitter_pct"] is None:
+            warnings.append("jitter_pct is null: fewer than 3 pairs of heard successive cycles")
+        slope_hz_per_s = _theil_sen_slope(starts[i0:i1], r_st)
+        summary["drift_pct_per_min"] = float(
+            slope_hz_per_s * 60.0 / float(summary["steady_rate_hz"]) * 100.0
+        )
+
+    # ----------------------------------------------------------- mid-run edges
+    starts_mid = recording_starts_mid_run
+    ends_mid = recording_ends_mid_run
+    if t.size:
+        first, last = float(summary["first_click_s"]), float(summary["last_click_s"])
+        p_first = float(periods[: min(5, n_cyc)].mean()) if n_cyc else 0.0
+        p_last = float(periods[-min(5, n_cyc) :].mean()) if n_cyc else 0.0
+        if starts_mid is None:
+            starts_mid = bool(n_cyc) and first < stall_factor * p_first
+        if ends_mid is None:
+            ends_mid = bool(n_cyc) and (duration_s - last) < stall_factor * p_last
+        if starts_mid:
+            warnings.append(
+                f"the recording starts mid-run (first click at {first:.3f} s, no silence "
+                "before it): no heating phase; the start of the run was not recorded"
+            )
+        if ends_mid:
+            warnings.append(
+                f"the run did not end before the recording did (last click at {last:.3f} s, "
+                f"recording ends at {duration_s:.3f} s): no 'after' silence, last_click_s is "
+                "the last click recorded, not the flame-out"
+            )
+    starts_mid = bool(starts_mid)
+    ends_mid = bool(ends_mid)
+
+    # ----------------------------------------------------------- phases
+    phases: list[Phase] = []
+    if t.size:
+        first = float(summary["first_click_s"])
+        last = float(summary["last_click_s"])
+        if not starts_mid and first > 0:
+            phases.append(Phase("heating", 0.0, first))
+        if steady is not None:
+            s0 = float(summary["steady_start_s"])
+            s1 = min(float(summary["steady_end_s"]), last)
+            if s0 > first:
+                phases.append(Phase("startup", first, s0))
+            phases.append(Phase("steady", s0, s1))
+            if last > s1:
+                phases.append(Phase("fade", s1, last))
+        elif n_cyc:
+            # No steady state: split the run at the peak of the smoothed rate.
+            peak = found.peak_s
+            if peak > first:
+                phases.append(Phase("startup", first, peak))
+            if last > peak:
+                phases.append(Phase("fade", peak, last))
+        if not ends_mid and duration_s > last:
+            phases.append(Phase("after", last, float(duration_s)))
+    else:
+        phases.append(Phase("heating", 0.0, float(duration_s)))
+
+    cycles = [
+        Cycle(
+            start_s=float(s),
+            period_s=float(p),
+            rate_hz=float(1.0 / p),
+            phase=_phase_at(phases, float(s)),
+            missed_clicks=int(m),
+        )
+        for s, p, m in zip(starts, periods, missed, strict=True)
+    ]
+
+    # ----------------------------------------------------------- other metrics
+    if steady is not None:
+        if starts_mid:
+            warnings.append(
+                "time_to_steady_s is null: the recording starts mid-run, the first click of "
+                "the run was not recorded"
+            )
+        else:
+            summary["time_to_steady_s"] = float(summary["steady_start_s"]) - float(
+                summary["first_click_s"]
+            )
+    if ignition_at_s is None:
+        warnings.append("ignition_delay_s is null: no ignition time given (use --ignition-at)")
+    elif not t.size:
+        warnings.append("ignition_delay_s is null: no clicks")
+    elif starts_mid:
+        warnings.append(
+            "ignition_delay_s is null: the recording starts mid-run, the first click of the run "
+            "was not recorded"
+        )
+    elif ignition_at_s > float(summary["first_click_s"]):
+        warnings.append(
+            f"ignition_delay_s is null: the ignition time {ignition_at_s:.3f} s is after the "
+            f"first click at {float(summary['first_click_s']):.3f} s"
+        )
+    else:
+        summary["ignition_delay_s"] = float(summary["first_click_s"]) - float(ignition_at_s)
+
+    if ring_hz is not None and math.isfinite(ring_hz) and ring_hz > 0:
+        summary["ring_hz"] = float(ring_hz)
+    else:
+        kept = set(t.tolist())
+        rings = [
+            float(c.ring_hz)
+            for c in main
+            if float(c.time_s) in kept
+            and getattr(c, "ring_hz", None) is not None
+            and math.isfinite(float(c.ring_hz))
+            and float(c.ring_hz) > 0
+        ]
+        if rings:
+            summary["ring_hz"] = float(np.median(rings))
+        else:
+            warnings.append("ring_hz is null: no click carried a measurable ring")
+
+    return Timeline(
+        cycles=cycles,
+        phases=phases,
+        stalls=stalls,
+        summary=summary,
+        warnings=warnings,
+        smoothed_rate=(starts.copy(), smooth.copy()),
+        main_click_times_s=t,
+        extra_click_times_s=extra,
+        missed_clicks=n_missed,
+        recording_starts_mid_run=starts_mid,
+        recording_ends_mid_run=ends_mid,
+    )
+
+
+# --------------------------------------------------------------------------- steps
+
+
+def _local_period(t: np.ndarray, window: int) -> np.ndarray:
+    """Local period (s) at each interval between main clicks: the rolling
+    median of the intervals, recomputed without the intervals of 1.5 local
+    periods or more (gaps must not lengthen the period they are judged by)."""
+    if t.size < 2:
+        return np.zeros(0)
+    d = np.diff(t)
+    local = rolling_median(d, window)
+    long_gap = d >= 1.5 * local
+    if long_gap.any() and not long_gap.all():
+        local = rolling_median(np.where(long_gap, np.nan, d), window)
+        bad = ~np.isfinite(local)
+        if bad.any():
+            idx = np.flatnonzero(~bad)
+            local[bad] = np.interp(np.flatnonzero(bad), idx, local[idx])
+    return local
+
+
+@dataclass
+class _Cycles:
+    starts: np.ndarray
+    periods: np.ndarray
+    missed: np.ndarray  # 1 where the cycle's own click was filled in
+    stall_gaps: list[tuple[int, int]]  # (i, i + 1) main-click indices around each stall
+
+
+def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray) -> _Cycles:
+    """Cycles from main-click times: a gap of ``r`` local periods is one cycle
+    (r < 1.5), ``round(r)`` cycles with filled-in clicks (1.5 <= r < factor)
+    or a stall (r >= factor)."""
+    starts: list[float] = []
+    periods: list[float] = []
+    missed: list[int] = []
+    stall_gaps: list[tuple[int, int]] = []
+    for i in range(max(t.size - 1, 0)):
+        gap = float(t[i + 1] - t[i])
+        r = gap / float(local[i])
+        if r >= factor[i]:
+            stall_gaps.append((i, i + 1))
+            continue
+        k = max(1, round(r)) if r >= 1.5 else 1
+        for j in range(k):
+            starts.append(float(t[i]) + j * gap / k)
+            periods.append(gap / k)
+            missed.append(1 if j > 0 else 0)
+    return _Cycles(
+        np.array(starts, float), np.array(periods, float), np.array(missed, int), stall_gaps
+    )
+
+
+@dataclass
+class _Steady:
+    smooth: np.ndarray
+    core: tuple[int, int] | None  # cycle index range [i0, i1) after edge trimming
+    start_s: float
+    peak_s: float
+
+
+def _steady_state(cyc: _Cycles, *, tol: float, edge: float, min_cycles: int, w: int) -> _Steady:
+    """Smoothed rate, steady stretch (core found with ``tol``, edges trimmed
+    with ``edge``) and the time of the smoothed-rate peak."""
+    rates = 1.0 / cyc.periods if cyc.periods.size else np.zeros(0)
+    smooth = rolling_median(rates, w)
+    peak_s = float(cyc.starts[int(np.argmax(smooth))]) if smooth.size else math.inf
+    if smooth.size < min_cycles:
+        return _Steady(smooth, None, math.inf, peak_s)
+    core = _find_steady(smooth, tol=tol, min_cycles=min_cycles)
+    if core is None:
+        return _Steady(smooth, None, math.inf, peak_s)
+    i0, i1 = core
+    # Trim the ends to the tighter band around the core's robust trend line.
+    ts, ss = cyc.starts[i0:i1], smooth[i0:i1]
+    slope = _theil_sen_slope(ts, ss)
+    mid_t = float(np.median(ts))
+    level = float(np.median(ss - slope * (ts - mid_t)))
+    resid = (smooth - (level + slope * (cyc.starts - mid_t))) / level
+    core_resid = resid[i0:i1]
+    sd = 1.4826 * float(np.median(np.abs(core_resid - np.median(core_resid))))
+    band = max(edge, 4.0 * sd)
+    # Start at the first run of ``w`` consecutive cycles inside the band, end
+    # at the last such run: a single noisy cycle inside the band is not yet
+    # steady running.
+    runs = _true_runs(np.abs(core_resid) <= band)
+    runs = runs[runs[:, 1] - runs[:, 0] >= min(w, i1 - i0)] if runs.size else runs
+    if runs.size == 0:
+        return _Steady(smooth, None, math.inf, peak_s)
+    i0, i1 = i0 + int(runs[0, 0]), i0 + int(runs[-1, 1])
+    if i1 - i0 < min_cycles:
+        return _Steady(smooth, None, math.inf, peak_s)
+    return _Steady(smooth, (i0, i1), float(cyc.starts[i0]), peak_s)
+
+
+def _phase_at(phases: list[Phase], time_s: float) -> str:
+    """Name of the phase holding ``time_s`` (the later one on a boundary)."""
+    name = phases[0].name if phases else "startup"
+    for p in phases:
+        if p.start_s <= time_s:
+            name = p.name
+    return name
+
+
+def _find_steady(smooth: np.ndarray, *, tol: float, min_cycles: int) -> tuple[int, int] | None:
+    """Longest stretch of cycles with ``|smooth - median| <= tol * median``.
+
+    Candidate band centres are the 1st..99th percentiles of the smoothed rate;
+    for each, the longest run of consecutive cycles inside the band is found,
+    and the longest run over all centres kept. The centre is then moved to the
+    median of that run and the run re-found (the run that overlaps the previous
+    one), until the run no longer changes: the stretch lies within the band
+    around its own median.
+    """
+    s = np.asarray(smooth, float)
+    cands = np.unique(np.percentile(s, np.arange(1, 100)))
+    best: tuple[int, int] | None = None
+    for c in cands:
+        runs = _true_runs(np.abs(s - c) <= tol * c)
+        if runs.size == 0:
+            continue
+        k = int(np.argmax(runs[:, 1] - runs[:, 0]))
+        a, b = int(runs[k, 0]), int(runs[k, 1])
+        if best is None or b - a > best[1] - best[0]:
+            best = (a, b)
+    if best is None:
+        return None
+    for _ in range(20):
+        m = float(np.median(s[best[0] : best[1]]))
+        runs = _true_runs(np.abs(s - m) <= tol * m)
+        overlap = [(int(a), int(b)) for a, b in runs if min(b, best[1]) > max(a, best[0])]
+        if not overlap:
+            break
+        new = max(overlap, key=lambda ab: ab[1] - ab[0])
+        if new == best:
+            break
+        best = new
+    if best[1] - best[0] < min_cycles:
+        return None
+    return best
+
+
+def _jitter_pct(starts: np.ndarray, periods: np.ndarray, missed: np.ndarray) -> float | None:
+    """Cycle-to-cycle period jitter (%): RMS of successive period differences
+    over sqrt(2) times the mean period (von Neumann et al., Ann. Math. Stat.
+    12, 153, 1941: for independent periods this equals the coefficient of
+    variation, while slow drift barely contributes).
+
+    Only pairs of successive cycles whose clicks were both heard and which are
+    not separated by a stall are used.
+    """
+    p = np.asarray(periods, float)
+    m = np.asarray(missed, int)
+    if p.size < 4:
+        return None
+    # Cycle i is a measured interval when neither it nor the next one is filled in.
+    heard = (m == 0) & np.append(m[1:] == 0, False)
+    contiguous = np.isclose(starts[:-1] + p[:-1], starts[1:], rtol=0, atol=1e-6)
+    ok = heard[:-1] & heard[1:] & contiguous
+    dp = np.diff(p)[ok]
+    if dp.size < 3:
+        return None
+    return float(np.sqrt(np.mean(dp**2)) / math.sqrt(2.0) / p.mean() * 100.0)
