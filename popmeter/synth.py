@@ -889,7 +889,18 @@ def truth_path_for(audio_path: str | Path) -> Path:
 def write_truth(path: str | Path, truth: dict) -> Path:
     """Write a ground-truth dict as JSON (indented, UTF-8); returns the path."""
     p = Path(path)
-    p.write_text(json.dumps(truth, indent=1, allow_nan=False) + "\n", encoding="utf-8")
+    lines = ["{"]
+    items = list(truth.items())
+    for i, (key, value) in enumerate(items):
+        comma = "," if i < len(items) - 1 else ""
+        if isinstance(value, list) and value and all(isinstance(v, dict) for v in value):
+            # one record per line: readable and a third of the indented size
+            body = ",\n  ".join(json.dumps(v, allow_nan=False) for v in value)
+            lines.append(f" {json.dumps(key)}: [\n  {body}\n ]{comma}")
+        else:
+            lines.append(f" {json.dumps(key)}: {json.dumps(value, allow_nan=False)}{comma}")
+    lines.append("}")
+    p.write_text("\n".join(lines) + "\n", encoding="utf-8")
     return p
 
 
@@ -1001,8 +1012,9 @@ def simulate_to_file(
                          f"{', '.join(DISTRACTOR_KINDS + ('hum',))})")
     scale = min(1.0, duration_s / 60.0)
     overrides: dict[str, Any] = {
-        "sample_rate_hz": int(sample_rate_hz), "duration_s": float(duration_s), "channels": int(channels),
-        "heating_s": 4.0 * scale, "startup_s": 8.0 * scale, "fade_s": 8.0 * scale, "after_s": 3.0 * scale,
+        "sample_rate_hz": int(sample_rate_hz), "duration_s": float(duration_s),
+        "channels": int(channels), "heating_s": 4.0 * scale, "startup_s": 8.0 * scale,
+        "fade_s": 8.0 * scale, "after_s": 3.0 * scale,
         "click_to_noise_db": click_to_noise_db, "clicks_per_cycle": int(clicks_per_cycle),
         "stalls": int(stalls), "distractors": others, "hum_dbfs": -40.0 if hum else None,
         "reverb_rt60_s": 0.5 if reverb else None, "seed": int(seed),
@@ -1013,6 +1025,7 @@ def simulate_to_file(
     samples, truth = render(scenario)
     truth.update(extra)
     out = Path(path)
+    out.parent.mkdir(parents=True, exist_ok=True)
     write_audio(out, samples, scenario.sample_rate_hz)
     write_truth(truth_path_for(out), truth)
     return out

@@ -326,3 +326,57 @@ def test_load_truth_errors(tmp_path):
     other.write_text('{"schema": "something/1"}')
     with pytest.raises(InputError, match="schema"):
         load_truth(other)
+
+
+# --- clicks from a boat profile ------------------------------------------------------
+
+BRASS_E_PA, BRASS_NU, BRASS_RHO = 110e9, 0.33, 8530.0  # handbook brass 70/30 (physics.md)
+
+
+def _clamped_circle_ring_hz(diameter_m: float, thickness_m: float) -> float:
+    # f = lambda^2 / (2 pi a^2) sqrt(D / (rho h)), lambda^2 = 10.2158 (Leissa, NASA SP-160)
+    a = diameter_m / 2
+    d = BRASS_E_PA * thickness_m**3 / (12 * (1 - BRASS_NU**2))
+    return 10.2158 / (2 * math.pi * a**2) * math.sqrt(d / (BRASS_RHO * thickness_m))
+
+
+@pytest.mark.parametrize("factor", [0.7, 1.0, 1.3])
+def test_profile_clicks_ring_at_the_plate_modes(factor):
+    from popmeter.engine import predict
+    from popmeter.profile import example_profile
+    from popmeter.synth import scenario_from_profile
+
+    prof = example_profile()  # 25 mm round brass diaphragm, 0.10 mm
+    s = scenario_from_profile(prof, thickness_factor=factor, **SHORT, click_to_noise_db=None)
+    h = 0.10e-3 * factor
+    assert s.ring_modes_hz[0] == pytest.approx(_clamped_circle_ring_hz(25e-3, h), rel=1e-3)
+    # Leissa, NASA SP-160: mode ratios = ratios of lambda^2 (10.2158, 21.26, 34.88, 39.771)
+    np.testing.assert_allclose(np.array(s.ring_modes_hz) / s.ring_modes_hz[0],
+                               np.array([10.2158, 21.26, 34.88, 39.771]) / 10.2158, rtol=2e-3)
+    assert s.steady_rate_hz == pytest.approx(predict(prof, thickness_m=h).rate_hz)
+    _, truth = render(s)
+    assert truth["ring_hz"] == pytest.approx(s.ring_modes_hz[0])
+
+
+def test_simulate_to_file_records_the_diaphragm(tmp_path):
+    from popmeter.profile import example_profile, write_profile
+
+    boat = tmp_path / "boat.toml"
+    write_profile(example_profile(), boat)
+    thin = simulate_to_file(tmp_path / "thin.flac", boat=boat, duration_s=10.0,
+                            sample_rate_hz=22050, thickness_factor=0.8)
+    nominal = simulate_to_file(tmp_path / "nominal.flac", boat=boat, duration_s=10.0,
+                               sample_rate_hz=22050)
+    t_thin, t_nom = load_truth(thin), load_truth(nominal)
+    assert t_thin["profile"]["diaphragm"]["thickness_mm"] == 0.10
+    assert t_thin["diaphragm"]["thickness_m"] == pytest.approx(0.08e-3)
+    # clamped circle: K_p = 192 D / (pi a^6), D ~ h^3 (Timoshenko & Woinowsky-Krieger, sec. 15)
+    a = 12.5e-3
+    d = BRASS_E_PA * (0.1e-3) ** 3 / (12 * (1 - BRASS_NU**2))
+    k_kpa_per_ml = 192 * d / (math.pi * a**6) * 1e-9
+    assert t_nom["diaphragm"]["stiffness_kpa_per_ml"] == pytest.approx(k_kpa_per_ml, rel=1e-3)
+    assert t_thin["diaphragm"]["stiffness_kpa_per_ml"] == pytest.approx(
+        k_kpa_per_ml * 0.8**3, rel=1e-3)
+    # a thinner plate rings lower (f ~ h) and the engine runs slower
+    assert t_thin["ring_hz"] == pytest.approx(0.8 * t_nom["ring_hz"], rel=1e-6)
+    assert t_thin["steady_rate_hz"] < t_nom["steady_rate_hz"]
