@@ -16,16 +16,20 @@ timeline is measured"):
    as a doubled rate.
 3. **Cycles, missed clicks and stalls.** The local period is the rolling
    median of the intervals between main clicks. An interval of about ``k``
-   local periods (``k`` = 2, 3, ... below ``stall_factor``) is ``k`` cycles
-   with ``k - 1`` missed clicks; the cycles whose own click was missed are
-   flagged (``Cycle.missed_clicks == 1``) and none of them shows a halved
-   rate. An interval of at least ``stall_factor`` local periods is a stall:
-   the engine stopped popping; it makes no cycle.
+   local periods below the stall limit is ``k`` cycles with ``k - 1`` missed
+   clicks; the cycles whose own click was missed are flagged
+   (``Cycle.missed_clicks == 1``) and none of them shows a halved rate. An
+   interval of at least ``stall_factor`` local periods (``startup_stall_factor``
+   during start-up, where an engine sputters) is a stall: the engine stopped
+   popping; it makes no cycle.
 4. **Smoothed rate.** A rolling median (``smoothing_cycles`` cycles, centred)
    of the cycle rates.
-5. **Steady state.** The longest stretch of consecutive cycles whose smoothed
-   rate stays within +/- ``steady_tolerance_pct`` of the stretch's own median,
-   and at least ``steady_min_cycles`` cycles long.
+5. **Steady state.** The core is the longest stretch of consecutive cycles
+   whose smoothed rate stays within +/- ``steady_tolerance_pct`` of the
+   stretch's own median, at least ``steady_min_cycles`` cycles long; its ends
+   are then trimmed to where the smoothed rate comes within a tighter band
+   (``steady_edge_pct`` or four robust standard deviations) of the core's
+   robust trend line for ``smoothing_cycles`` cycles in a row.
 6. **Phases.** ``heating`` (recording start to first click), ``startup``
    (first click to steady start), ``steady``, ``fade`` (steady end to last
    click), ``after`` (silence after the last click).
@@ -277,22 +281,44 @@ def _removal_cost(t: np.ndarray, j: int, period_s: float) -> float:
     return abs(math.log(max(float(new_gap), 1e-9) / period_s))
 
 
-def _block_sem_of_median(values: np.ndarray, blocks: int = 10) -> float | None:
-    """Standard error of the median by batch means over contiguous blocks.
+def _block_rates(
+    starts: np.ndarray, periods: np.ndarray, blocks: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Mid time (s) and mean rate (Hz) of ``blocks`` contiguous blocks of cycles.
 
-    The values are cut into ``blocks`` contiguous blocks; the standard error
-    is the standard deviation of the block medians over ``sqrt(blocks)``
-    (method of batch means; Flyvbjerg & Petersen, J. Chem. Phys. 91, 461,
-    1989). Contiguous blocks keep slow wander and correlated jitter in the
-    error instead of hiding them as independent samples would.
+    The block rate is cycles over time (``k / sum(period)``): unlike single
+    cycle rates it is not quantised by the sample grid of the click times.
     """
-    v = np.asarray(values, float)
-    v = v[np.isfinite(v)]
-    if v.size < 2 * blocks:
+    t_parts = np.array_split(np.asarray(starts, float), blocks)
+    p_parts = np.array_split(np.asarray(periods, float), blocks)
+    mid = np.array([tp[0] + 0.5 * pp.sum() for tp, pp in zip(t_parts, p_parts, strict=True)])
+    rate = np.array([pp.size / pp.sum() for pp in p_parts])
+    return mid, rate
+
+
+def _batch_sem(starts: np.ndarray, periods: np.ndarray, blocks: int = 10) -> float | None:
+    """Standard error (Hz) of the steady rate by the method of batch means.
+
+    The steady cycles are cut into ``blocks`` contiguous blocks; the standard
+    error is the standard deviation of the block rates over ``sqrt(blocks)``
+    (batch means; Flyvbjerg & Petersen, J. Chem. Phys. 91, 461, 1989).
+    Contiguous blocks keep slow wander and correlated jitter in the error
+    instead of hiding them as independent samples would.
+    """
+    if np.asarray(periods).size < 2 * blocks:
         return None
-    parts = np.array_split(v, blocks)
-    med = np.array([np.median(p) for p in parts])
-    return float(np.std(med, ddof=1) / math.sqrt(blocks))
+    _, rate = _block_rates(starts, periods, blocks)
+    return float(np.std(rate, ddof=1) / math.sqrt(blocks))
+
+
+def _drift_slope(starts: np.ndarray, periods: np.ndarray) -> float:
+    """Robust slope (Hz/s) of the rate against time: Theil-Sen (Sen, JASA 63,
+    1968; scipy.stats.theilslopes) over block rates of about 8 cycles each (at
+    most 500 blocks)."""
+    n = np.asarray(periods).size
+    blocks = max(2, min(500, n // 8))
+    mid, rate = _block_rates(starts, periods, blocks)
+    return float(stats.theilslopes(rate, mid)[0])
 
 
 def _theil_sen_slope(t: np.ndarray, y: np.ndarray, max_points: int = 1000) -> float:
@@ -536,13 +562,13 @@ def build_timeline(
         summary["steady_rate_hz"] = float(np.median(r_st))
         q75, q25 = np.percentile(r_st, [75, 25])
         summary["steady_rate_iqr_hz"] = float(q75 - q25)
-        summary["steady_rate_sem_hz"] = _block_sem_of_median(r_st)
+        summary["steady_rate_sem_hz"] = _batch_sem(starts[i0:i1], periods[i0:i1])
         if summary["steady_rate_sem_hz"] is None:
             warnings.append("steady_rate_sem_hz is null: fewer than 20 steady cycles")
         summary["jitter_pct"] = _jitter_pct(starts[i0:i1], periods[i0:i1], missed[i0:i1])
         if summary["jitter_pct"] is None:
             warnings.append("jitter_pct is null: fewer than 3 pairs of heard successive cycles")
-        slope_hz_per_s = _theil_sen_slope(starts[i0:i1], r_st)
+        slope_hz_per_s = _drift_slope(starts[i0:i1], periods[i0:i1])
         summary["drift_pct_per_min"] = float(
             slope_hz_per_s * 60.0 / float(summary["steady_rate_hz"]) * 100.0
         )
@@ -813,10 +839,16 @@ def _find_steady(smooth: np.ndarray, *, tol: float, min_cycles: int) -> tuple[in
 
 
 def _jitter_pct(starts: np.ndarray, periods: np.ndarray, missed: np.ndarray) -> float | None:
-    """Cycle-to-cycle period jitter (%): RMS of successive period differences
-    over sqrt(2) times the mean period (von Neumann et al., Ann. Math. Stat.
-    12, 153, 1941: for independent periods this equals the coefficient of
-    variation, while slow drift barely contributes).
+    """Cycle-to-cycle period jitter (%), from successive period differences.
+
+    ``jitter = 1.4826 * median(|P[i+1] - P[i]|) / sqrt(2) / mean(P) * 100``:
+    the robust (median absolute) scale of the successive differences, which
+    for independent Gaussian periods equals their standard deviation times
+    sqrt(2) (mean square successive difference, von Neumann et al., Ann.
+    Math. Stat. 12, 153, 1941; 1.4826 is the normal consistency factor of the
+    median absolute deviation). So it reads as the coefficient of variation of
+    the period, while slow drift barely contributes and a few irregular
+    cycles at the edges of the steady stretch do not dominate.
 
     Only pairs of successive cycles whose clicks were both heard and which are
     not separated by a stall are used.
@@ -832,4 +864,4 @@ def _jitter_pct(starts: np.ndarray, periods: np.ndarray, missed: np.ndarray) -> 
     dp = np.diff(p)[ok]
     if dp.size < 3:
         return None
-    return float(np.sqrt(np.mean(dp**2)) / math.sqrt(2.0) / p.mean() * 100.0)
+    return float(1.4826 * np.median(np.abs(dp)) / math.sqrt(2.0) / p.mean() * 100.0)
