@@ -406,26 +406,49 @@ def _generate_cycles(
 # click waveforms
 
 
-def _click_length(s: RunScenario, modes: int) -> int:
-    slowest = max(s.ring_mode_decay_s[:modes])
-    return math.ceil((_LN_1000 * slowest + s.attack_s) * s.sample_rate_hz) + 1
+# each mode is rendered until it has decayed by 70 dB (ln(10^3.5) = 8.06 time constants)
+_MODE_SPAN_TAU = 3.5 * math.log(10.0)
 
 
-def _click_wave(
-    s: RunScenario,
-    t: np.ndarray,
-    freqs_hz: np.ndarray,
-    amps: np.ndarray,
-    decays_s: np.ndarray,
-) -> np.ndarray:
-    """One click on the time axis ``t`` (seconds, t[0] = 1/fs > 0)."""
-    rise = np.where(t < s.attack_s, 0.5 * (1.0 - np.cos(np.pi * t / s.attack_s)), 1.0)
-    ring = np.zeros_like(t)
-    for f, a, d in zip(freqs_hz, amps, decays_s):
-        ring += a * np.exp(-t / d) * np.sin(2 * np.pi * f * t)
-    x = t / s.snap_time_s
-    snap = s.snap_amplitude * x * np.exp(1.0 - x)
-    return rise * ring + snap
+class _ClickShape:
+    """A click family (main or second): per-mode envelopes precomputed once.
+
+    The click at sample i (i = 0, 1, ...) is evaluated at t = (i + 1) / fs so
+    that its first sample is non-zero (the onset definition):
+
+        x(t) = rise(t) sum_k a_k exp(-t / tau_k) sin(2 pi s f_k t) + snap(t)
+
+    with the raised-cosine rise over ``attack_s``, the frequency scale ``s``
+    drawn per click, and the snap ``A (t/T) exp(1 - t/T)``.  Normalised so
+    that the nominal click (s = 1) peaks at 1.0.
+    """
+
+    def __init__(self, sc: RunScenario, freqs_hz: np.ndarray, amps: np.ndarray,
+                 decays_s: np.ndarray):
+        fs = sc.sample_rate_hz
+        self.freqs_hz = np.asarray(freqs_hz, dtype=float)
+        spans = [math.ceil((_MODE_SPAN_TAU * d + sc.attack_s) * fs) + 1 for d in decays_s]
+        n_snap = math.ceil(_MODE_SPAN_TAU * 1.5 * sc.snap_time_s * fs) + 1  # 70 dB down too
+        self.length = max(max(spans), n_snap)
+        self.t = np.arange(1, self.length + 1) / fs
+        rise = np.where(self.t < sc.attack_s,
+                        0.5 * (1.0 - np.cos(np.pi * self.t / sc.attack_s)), 1.0)
+        self.envelopes = [a * rise[:m] * np.exp(-self.t[:m] / d)
+                          for a, d, m in zip(amps, decays_s, spans)]
+        x = self.t[:n_snap] / sc.snap_time_s
+        self.snap = sc.snap_amplitude * x * np.exp(1.0 - x)
+        self.norm = 1.0
+        self.norm = 1.0 / float(np.max(np.abs(self.wave(1.0, self.length))))
+
+    def wave(self, freq_scale: float, frames: int) -> np.ndarray:
+        """The first ``frames`` samples of a click with ring frequencies x ``freq_scale``."""
+        out = np.zeros(frames)
+        for f, env in zip(self.freqs_hz, self.envelopes):
+            m = min(len(env), frames)
+            out[:m] += env[:m] * np.sin((2 * np.pi * f * freq_scale) * self.t[:m])
+        m = min(len(self.snap), frames)
+        out[:m] += self.snap[:m]
+        return out * self.norm
 
 
 def _band(s: RunScenario, modes_hz: np.ndarray) -> tuple[float, float]:
@@ -677,13 +700,9 @@ def render(scenario: RunScenario) -> tuple[np.ndarray, dict]:
     decays2 = decays * s.second_click_decay_factor
     band = _band(s, modes)
 
-    # reference clicks: normalise the nominal main click to unit peak
-    n_click = _click_length(s, len(modes))
-    t_click = np.arange(1, n_click + 1) / fs  # sample 0 of a click is at t = 1/fs: non-zero
-    ref_main = _click_wave(s, t_click, modes, amps, decays)
-    main_norm = 1.0 / float(np.max(np.abs(ref_main)))
-    ref_second = _click_wave(s, t_click, modes, amps2, decays2)
-    second_norm = 1.0 / float(np.max(np.abs(ref_second)))
+    # the two click families, each normalised to a unit peak
+    main_shape = _ClickShape(s, modes, amps, decays)
+    second_shape = _ClickShape(s, modes, amps2, decays2)
     amp_nominal = 10 ** (s.click_level_dbfs / 20.0)
 
     cycles, stall_pairs = _generate_cycles(s, plan, rng_cyc)
@@ -701,13 +720,10 @@ def render(scenario: RunScenario) -> tuple[np.ndarray, dict]:
             f_scale = 1.0 + s.ring_freq_sd_pct / 100.0 * rng_click.standard_normal()
             if cyc.missed or n0 >= n:
                 continue
-            m = min(n_click, n - n0)
-            if kind == 0:
-                wave = _click_wave(s, t_click[:m], modes * f_scale, amps, decays) * main_norm
-                gain_db = cyc.level_db + level_sd
-            else:
-                wave = _click_wave(s, t_click[:m], modes * f_scale, amps2, decays2) * second_norm
-                gain_db = cyc.level_db + level_sd + s.second_click_level_db
+            shape = main_shape if kind == 0 else second_shape
+            m = min(shape.length, n - n0)
+            wave = shape.wave(f_scale, m)
+            gain_db = cyc.level_db + level_sd + (0.0 if kind == 0 else s.second_click_level_db)
             wave *= amp_nominal * 10 ** (gain_db / 20.0)
             clicks_track[n0:n0 + m] += wave
             clicks.append({
@@ -750,7 +766,7 @@ def render(scenario: RunScenario) -> tuple[np.ndarray, dict]:
 
     # noise scaled to the click-to-noise ratio (definition: module docstring)
     ref_peak_band = float(np.max(np.abs(bandlimit(
-        np.concatenate([np.zeros(n_click), ref_main * main_norm, np.zeros(n_click)]), fs, band))))
+        np.pad(main_shape.wave(1.0, main_shape.length), main_shape.length), fs, band))))
     out = np.empty((n, s.channels), dtype=np.float32)
     hum = None
     if s.hum_dbfs is not None:
