@@ -198,12 +198,16 @@ class Timeline:
 # --------------------------------------------------------------------------- helpers
 
 
-def rolling_median(values: np.ndarray, window: int) -> np.ndarray:
+def rolling_median(values: np.ndarray, window: int, *, shrink_edges: bool = True) -> np.ndarray:
     """Centred rolling median of ``values`` over ``window`` points.
 
-    Near the ends the window shrinks symmetrically (the first value is its own
-    median, the second the median of three, ...), so the curve is not pulled
-    towards padding values. ``window`` is made odd. NaN values are ignored.
+    ``shrink_edges`` True (default): near the ends the window shrinks
+    symmetrically (the first value is its own median, the second the median
+    of three, ...), so a curve that rises at the start is followed and not
+    pulled towards its later values. False: the first (last) ``window // 2``
+    points take the median of the first (last) full window, so a single odd
+    value at an end is outvoted. ``window`` is made odd. NaN values are
+    ignored.
     """
     x = np.asarray(values, dtype=float)
     n = x.size
@@ -218,8 +222,12 @@ def rolling_median(values: np.ndarray, window: int) -> np.ndarray:
     with np.errstate(all="ignore"):
         out[half : n - half] = np.nanmedian(win, axis=1)
     for i in range(half):
-        out[i] = np.nanmedian(x[: 2 * i + 1])
-        out[n - 1 - i] = np.nanmedian(x[n - 1 - 2 * i :])
+        if shrink_edges:
+            out[i] = np.nanmedian(x[: 2 * i + 1])
+            out[n - 1 - i] = np.nanmedian(x[n - 1 - 2 * i :])
+        else:
+            out[i] = out[half]
+            out[n - 1 - i] = out[n - 1 - half]
     return out
 
 
@@ -241,7 +249,8 @@ def _remove_extra_clicks(
     interval shorter than ``fraction`` of the local period (rolling median of
     intervals) marks a pair; the click of the pair whose removal makes the
     merged neighbouring intervals closest (in log ratio) to the local period is
-    removed (ties: the weaker click). Repeats until no short interval is left.
+    removed; when the two choices differ by less than 0.1 in log ratio, the
+    weaker click is removed (at equal strength the later one). Repeats until no short interval is left.
     """
     t = np.asarray(times_s, float).copy()
     s = np.asarray(strength, float).copy()
@@ -250,7 +259,7 @@ def _remove_extra_clicks(
         if t.size < 3:
             break
         d = np.diff(t)
-        local = rolling_median(d, window)
+        local = rolling_median(d, window, shrink_edges=False)
         short = np.flatnonzero(d < fraction * local)
         if short.size == 0:
             break
@@ -259,7 +268,10 @@ def _remove_extra_clicks(
         p = local[i]
 
         c_i, c_j = _removal_cost(t, i, p), _removal_cost(t, i + 1, p)
-        if abs(c_i - c_j) < 1e-9:
+        if abs(c_i - c_j) < 0.1:
+            # The rhythm cannot tell them apart (within a tenth of a period):
+            # the weaker click goes; at equal strength the later one (an echo
+            # or a double trigger follows the click it copies).
             drop = i if s[i] < s[i + 1] else i + 1
         else:
             drop = i if c_i < c_j else i + 1
@@ -706,10 +718,10 @@ def _local_period(t: np.ndarray, window: int) -> np.ndarray:
     if t.size < 2:
         return np.zeros(0)
     d = np.diff(t)
-    local = rolling_median(d, window)
+    local = rolling_median(d, window, shrink_edges=False)
     long_gap = d >= 1.5 * local
     if long_gap.any() and not long_gap.all():
-        local = rolling_median(np.where(long_gap, np.nan, d), window)
+        local = rolling_median(np.where(long_gap, np.nan, d), window, shrink_edges=False)
         bad = ~np.isfinite(local)
         if bad.any():
             idx = np.flatnonzero(~bad)
