@@ -26,7 +26,7 @@ from matplotlib.figure import Figure
 
 from popmeter.errors import PopmeterError
 
-__all__ = ["PHASE_COLOURS", "write_run_report"]
+__all__ = ["PHASE_COLOURS", "typical_click_spectrum", "write_run_report"]
 
 #: One colour per phase, used in every figure and in the phase strip.
 PHASE_COLOURS: dict[str, str] = {
@@ -418,32 +418,47 @@ def _detail_figure(audio: Path, src: Any, tl: Any, clicks: Sequence[Any], path: 
     return True
 
 
-def _spectrum_figure(audio: Path, src: Any, tl: Any, ring_hz: float | None, path: Path) -> bool:
+def typical_click_spectrum(
+    audio_path: Path,
+    click_times_s: np.ndarray,
+    *,
+    sample_rate_hz: float,
+    duration_s: float,
+    channel: int,
+    length_s: float,
+) -> tuple[np.ndarray, np.ndarray, int]:
+    """Average power spectrum of the clicks at ``click_times_s``.
+
+    Each click is read from 1 ms before its time for ``length_s`` seconds
+    (:func:`popmeter.audio_io.read_segment`, so only these pieces are read),
+    tapered with a Tukey window (25 % cosine taper), zero-padded to at least
+    four times its length and transformed; the power spectra are averaged
+    (Welch's averaging of modified periodograms, IEEE Trans. Audio
+    Electroacoust. 15, 70, 1967, with one segment per click).
+
+    Returns
+    -------
+    freq_hz, power_db, used
+        Frequencies (Hz), power in dB relative to the highest bin above 0 Hz,
+        and the number of clicks averaged (0: nothing could be read, arrays
+        empty).
+    """
+    from scipy.signal.windows import tukey
+
     from popmeter.audio_io import read_segment
 
-    t = np.asarray(tl.main_click_times_s, float)
-    if t.size == 0:
-        return False
-    s0, s1 = tl.summary.get("steady_start_s"), tl.summary.get("steady_end_s")
-    if s0 is not None and s1 is not None and np.any((t >= s0) & (t <= s1)):
-        t = t[(t >= s0) & (t <= s1)]
-    pick = t[np.linspace(0, t.size - 1, min(_SPECTRUM_CLICKS, t.size)).round().astype(int)]
-    period = (
-        float(np.median(np.diff(tl.main_click_times_s))) if len(tl.main_click_times_s) > 1 else 0.1
-    )
-    length_s = min(0.04, 0.8 * period)
-    fs = float(src.sample_rate_hz)
+    fs = float(sample_rate_hz)
     n = max(16, round(length_s * fs))
     nfft = 1 << math.ceil(math.log2(4 * n))
-    win = np.hanning(n)
+    win = tukey(n, 0.25)
     acc = np.zeros(nfft // 2 + 1)
     used = 0
-    for tc in pick:
+    for tc in np.asarray(click_times_s, float):
         start = max(0.0, float(tc) - 0.001)
-        stop = min(start + n / fs, src.duration_s)
+        stop = min(start + n / fs, duration_s)
         if stop <= start:
             continue
-        x = read_segment(audio, start_s=start, stop_s=stop, channel=src.channel_used)
+        x = read_segment(audio_path, start_s=start, stop_s=stop, channel=channel)
         if x.size < n // 2:
             continue
         seg = np.zeros(n)
@@ -451,27 +466,55 @@ def _spectrum_figure(audio: Path, src: Any, tl: Any, ring_hz: float | None, path
         acc += np.abs(np.fft.rfft(seg * win, nfft)) ** 2
         used += 1
     if used == 0:
-        return False
+        return np.zeros(0), np.zeros(0), 0
     f = np.fft.rfftfreq(nfft, 1.0 / fs)
-    db = 10 * np.log10(acc / used + 1e-20)
+    db = 10 * np.log10(acc / used + 1e-30)
     db -= db[1:].max()
+    return f, db, used
+
+
+def _spectrum_figure(audio: Path, src: Any, tl: Any, ring_hz: float | None, path: Path) -> bool:
+    t = np.asarray(tl.main_click_times_s, float)
+    if t.size == 0:
+        return False
+    s0, s1 = tl.summary.get("steady_start_s"), tl.summary.get("steady_end_s")
+    if s0 is not None and s1 is not None and np.any((t >= s0) & (t <= s1)):
+        t = t[(t >= s0) & (t <= s1)]
+    pick = t[np.linspace(0, t.size - 1, min(_SPECTRUM_CLICKS, t.size)).round().astype(int)]
+    all_t = np.asarray(tl.main_click_times_s, float)
+    period = float(np.median(np.diff(all_t))) if all_t.size > 1 else 0.1
+    length_s = min(0.04, 0.8 * period)
+    fs = float(src.sample_rate_hz)
+    f, db, used = typical_click_spectrum(
+        audio,
+        pick,
+        sample_rate_hz=fs,
+        duration_s=src.duration_s,
+        channel=src.channel_used,
+        length_s=length_s,
+    )
+    if used == 0:
+        return False
+    n = round(length_s * fs)
     fig = _new_figure(10.0, 3.0)
     ax = fig.add_subplot(1, 1, 1)
     _style(ax)
     ax.plot(f[1:], db[1:], color=_INK, linewidth=0.9)
     if ring_hz is not None and 0 < ring_hz < fs / 2:
-        ax.axvline(ring_hz, color=PHASE_COLOURS["heating"], linewidth=1.4)
+        k = int(np.argmin(np.abs(f - ring_hz)))
+        ax.axvline(ring_hz, color=PHASE_COLOURS["heating"], linewidth=0.9, linestyle=":")
+        ax.plot([ring_hz], [db[k] + 3], marker="v", markersize=8, color=PHASE_COLOURS["heating"])
         ax.annotate(
             f"ring {ring_hz:.0f} Hz",
-            (ring_hz, -3),
-            xytext=(8, 0),
+            (ring_hz, db[k] + 3),
+            xytext=(8, 2),
             textcoords="offset points",
             fontsize=8,
             color=PHASE_COLOURS["heating"],
         )
     ax.set_xscale("log")
     ax.set_xlim(max(20.0, f[1]), fs / 2)
-    ax.set_ylim(-70, 5)
+    ax.set_ylim(max(-80.0, float(np.min(db[1:])) - 3), 8)
     ax.set_xlabel("frequency (Hz)", color=_INK, fontsize=9)
     ax.set_ylabel("power (dB re peak)", color=_INK, fontsize=9)
     ax.set_title(f"{used} clicks averaged, {1000 * n / fs:.0f} ms each", fontsize=8, color=_INK)
