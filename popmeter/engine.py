@@ -188,11 +188,6 @@ def nominal_values(profile: BoatProfile) -> dict[str, float]:
         "gas_volume_m3": profile.boiler.gas_volume_m3.value,
         "polytropic_index": profile.gas.polytropic_index.value,
         "pressure_pa": profile.gas.pressure_pa.value,
-        "thickness_m": dia.thickness_m.value,
-        "youngs_modulus_pa": dia.youngs_modulus_pa.value,
-        "poisson_ratio": dia.poisson_ratio.value,
-        "density_kg_m3": dia.density_kg_m3.value,
-        "water_density_kg_m3": profile.water.density_kg_m3.value,
     }
     if dia.shape == "circle":
         assert dia.diameter_m is not None
@@ -201,6 +196,13 @@ def nominal_values(profile: BoatProfile) -> dict[str, float]:
         assert dia.width_m is not None and dia.length_m is not None
         v["width_m"] = dia.width_m.value
         v["length_m"] = dia.length_m.value
+    v.update({
+        "thickness_m": dia.thickness_m.value,
+        "youngs_modulus_pa": dia.youngs_modulus_pa.value,
+        "poisson_ratio": dia.poisson_ratio.value,
+        "density_kg_m3": dia.density_kg_m3.value,
+        "water_density_kg_m3": profile.water.density_kg_m3.value,
+    })
     return v
 
 
@@ -381,6 +383,7 @@ def model_report(profile_path: str | Path, *, json_path: str | Path | None = Non
     Raises:
         ProfileError: the profile is missing or invalid.
     """
+    from rich import box
     from rich.console import Console
     from rich.table import Table
 
@@ -405,17 +408,20 @@ def model_report(profile_path: str | Path, *, json_path: str | Path | None = Non
     head.add_row("diaphragm stiffness", f"{pred.stiffness_kpa_per_ml:.1f}", "kPa/mL")
     head.add_row("rigidity D", f"{pred.rigidity_n_m * 1e3:.2f}", "mN m")
     head.add_row("inertance M", f"{pred.inertance_kg_m4:.3g}", "kg/m^4")
-    head.add_row("gas / diaphragm compliance", f"{pred.gas_compliance_m3_pa * 1e15:.3g} / "
-                 f"{pred.plate_compliance_m3_pa * 1e15:.3g}", "mL/MPa")
+    head.add_row("gas / diaphragm compliance", f"{pred.gas_compliance_m3_pa * 1e12:.3g} / "
+                 f"{pred.plate_compliance_m3_pa * 1e12:.3g}", "mL/MPa")
     console.print(head)
 
-    table = Table(title="Sensitivity: % change per % of input", title_justify="left")
-    table.add_column("input")
-    table.add_column("nominal", justify="right")
+    table = Table(title="Sensitivity: % change of rate and ring per % of input", title_justify="left",
+                  box=box.SIMPLE_HEAD, pad_edge=False,
+                  caption="rate@tol: how far the rate moves when the input is off by its tolerance",
+                  caption_justify="left")
+    table.add_column("input", no_wrap=True)
+    table.add_column("nominal", justify="right", no_wrap=True)
     table.add_column("+-tol", justify="right")
     table.add_column("rate", justify="right")
     table.add_column("ring", justify="right")
-    table.add_column("rate at tol", justify="right")
+    table.add_column("rate@tol", justify="right")
     for key, value in nominal.items():
         name, unit, factor = INPUT_NAMES[key]
         tol = tols[key] * factor
