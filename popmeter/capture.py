@@ -960,17 +960,48 @@ def listen(
             session.report_fault(f"input device {dev.index} ({dev.name}): cannot start ({exc})")
         _wait_for_end(session, stream, console=console, view=view)
     finally:
-        try:
-            stream.stop()
-            stream.close()
-        except Exception as exc:  # noqa: BLE001 - a device that is gone may refuse to stop
-            if not session.faults:
-                session.faults.append(f"input device {dev.index} ({dev.name}) failed while "
-                                      f"stopping ({exc})")
+        problem = _close_stream(sd, stream, abort=bool(session.faults))
+        if problem and not session.faults:
+            session.faults.append(f"input device {dev.index} ({dev.name}) {problem}")
         result = session.finish()
     return _after_capture(result, out=out, device=dev, channel=channel, profile=profile,
                           qc_spec=qc_spec, json_path=json_path, csv_path=csv_path,
                           report_dir=report_dir, console=console)
+
+
+#: Wall time allowed for PortAudio to stop a stream (s). Stopping a stream
+#: whose device has vanished can block forever (seen with the JACK host API
+#: after the server died), so it runs in a helper thread with this deadline.
+STREAM_CLOSE_TIMEOUT_S = 3.0
+
+
+def _close_stream(sd: Any, stream: Any, *, abort: bool) -> str | None:
+    """Stop and close the stream without ever hanging; returns a problem or None."""
+    errors: list[str] = []
+
+    def work() -> None:
+        try:
+            if abort:
+                stream.abort()
+            else:
+                stream.stop()
+            stream.close()
+        except Exception as exc:  # noqa: BLE001 - a device that is gone may refuse to stop
+            errors.append(f"failed while stopping ({exc})")
+
+    t = threading.Thread(target=work, name="popmeter-stream-close", daemon=True)
+    t.start()
+    t.join(STREAM_CLOSE_TIMEOUT_S)
+    if t.is_alive():
+        # PortAudio is stuck on a dead device; its exit handler (Pa_Terminate)
+        # would block the interpreter's exit the same way, so drop it.
+        import atexit
+
+        handler = getattr(sd, "_exit_handler", None)
+        if handler is not None:
+            atexit.unregister(handler)
+        return f"did not stop within {STREAM_CLOSE_TIMEOUT_S:g} s (device lost)"
+    return errors[0] if errors else None
 
 
 def _load_inputs(boat: Any, spec: Any) -> tuple[Any, Any]:
@@ -1036,14 +1067,29 @@ def _after_capture(result: CaptureResult, *, out: Path, device: InputDevice, cha
         write_live_sidecar(sidecar_path(out), result, device=device, recording=str(out))
     except OSError as exc:
         result.faults.append(f"cannot write {sidecar_path(out)} ({exc})")
+    try:
+        return _final_analysis(result, out=out, channel=channel, profile=profile,
+                               qc_spec=qc_spec, json_path=json_path, csv_path=csv_path,
+                               report_dir=report_dir, console=console)
+    finally:
+        # The faults again, last, one line each on stderr: what a script or a
+        # log keeps, and what the operator reads after the summary.
+        for fault in result.faults:
+            kept = "" if "kept" in fault else f"; the {result.written_s:.1f} s recorded are kept in {out}"
+            print(f"popmeter listen: {fault}{kept}", file=sys.stderr)
 
+
+def _final_analysis(result: CaptureResult, *, out: Path, channel: int, profile: Any,
+                    qc_spec: Any, json_path: Any, csv_path: Any, report_dir: Any,
+                    console: Any) -> int:
+    from popmeter import live_view
     from popmeter.analysis import analyze_file, write_outputs
 
     fault_code = 2 if result.faults else 0
     try:
         analysis = analyze_file(out, boat=profile, spec=qc_spec, channel=channel)
     except PopmeterError as exc:
-        console.print(f"[bold red]analysis of {out} failed:[/] {exc}")
+        print(f"popmeter listen: analysis of {out} failed: {exc}", file=sys.stderr)
         if qc_spec is not None:
             live_view.print_big_verdict(console, "ERROR", [str(exc)])
             return max(1, fault_code)
@@ -1053,11 +1099,10 @@ def _after_capture(result: CaptureResult, *, out: Path, device: InputDevice, cha
     code = fault_code
     verdict = getattr(analysis, "verdict", None)
     if verdict is not None:
-        live_view.print_big_verdict(console, str(verdict.status), list(getattr(verdict, "reasons", [])))
+        live_view.print_big_verdict(console, str(verdict.status),
+                                    [str(r) for r in getattr(verdict, "reasons", [])])
         if verdict.status != "PASS":
             code = max(code, 1)
-    for fault in result.faults:
-        print(f"popmeter listen: {fault}", file=sys.stderr)
     return code
 
 
