@@ -393,7 +393,8 @@ def test_bad_options_raise_usage_errors():
 
 
 def test_against_generator_truth():
-    # The project's own generator (popmeter.synth) with its ground truth.
+    # The project's own generator (popmeter.synth) with its ground truth. Clear
+    # stalls (4.5-8 periods): a gap of 3 periods is two missed clicks by definition.
     synth = pytest.importorskip("popmeter.synth")
     for cpc, seed in ((1, 0), (2, 3)):
         sc = synth.RunScenario(
