@@ -403,6 +403,7 @@ def test_against_generator_truth():
             click_to_noise_db=None,
             clicks_per_cycle=cpc,
             stalls=2,
+            stall_periods=(4.5, 8.0),
             seed=seed,
         )
         _, truth = synth.render(sc)
