@@ -163,7 +163,10 @@ class BoatProfile:
     def with_values(self, *, thickness_m: float | None = None,
                     gas_volume_m3: float | None = None,
                     polytropic_index: float | None = None) -> BoatProfile:
-        """A copy with some nominal values replaced (tolerances kept). None keeps a value."""
+        """A copy with some nominal values replaced (SI; tolerances kept). None keeps a value.
+
+        ``raw`` is not changed: it still holds the file as loaded.
+        """
         prof = self
         if thickness_m is not None:
             prof = replace(prof, diaphragm=replace(

@@ -190,6 +190,8 @@ def test_model_report(tmp_path, capsys):
     engine.model_report(path, json_path=out)
     text = capsys.readouterr().out
     assert "12.21" in text and "Hz" in text
+    # compliances in mL/MPa: C_g = 1 mL / 101.325 kPa = 9.87 mL/MPa; C_p = 6.07e-12 m^3/Pa = 6.07 mL/MPa
+    assert "9.87 / 6.07" in text and "mL/MPa" in text
     assert "tubes.inner_diameter_mm" in text
     assert "certify" in text
     doc = json.loads(out.read_text())

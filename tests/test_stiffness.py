@@ -83,6 +83,29 @@ def test_rate_and_ring_recover_the_diaphragm(wetted, shape):
     assert covered >= 9
 
 
+def test_wet_thickness_cubic_against_a_bracketing_root_finder():
+    # Lamb's wet ring solved for h (Newton in popmeter) against scipy's brentq on the same equation
+    from scipy.optimize import brentq
+
+    from popmeter.plate import LAMB_GAMMA
+    from popmeter.stiffness import _thickness_from_ring
+
+    a, e, nu, rho, rho_w, lam2 = 0.0125, 110e9, 0.33, 8530.0, 998.0, 10.2158
+    rings = np.array([150.0, 350.0, 900.0, 3000.0])
+    h = _thickness_from_ring(rings, lam2=np.array(lam2), scale_m=np.array(a), youngs_modulus_pa=np.array(e),
+                             poisson_ratio=np.array(nu), density_kg_m3=np.array(rho), wetted=True,
+                             equivalent_radius_m=np.array(a), water_density_kg_m3=np.array(rho_w))
+
+    def wet_ring(thickness):
+        d = e * thickness**3 / (12 * (1 - nu**2))
+        dry = lam2 / (2 * math.pi * a**2) * math.sqrt(d / (rho * thickness))
+        return dry / math.sqrt(1 + LAMB_GAMMA * rho_w * a / (rho * thickness))
+
+    for f, h_newton in zip(rings, h):
+        h_ref = brentq(lambda t, target=f: wet_ring(t) - target, 1e-7, 1e-2, xtol=1e-15)
+        assert h_newton == pytest.approx(h_ref, rel=1e-9)
+
+
 def test_thinner_diaphragm_comes_out_softer_and_is_flagged():
     prof = example_profile()
     out = {}
