@@ -325,6 +325,7 @@ class LiveState:
     first_click_s: float | None = None
     last_click_s: float | None = None
     rate_hz: float | None = None
+    clicks_per_cycle: int = 1
     rate_trace_hz: list[float] = field(default_factory=list)
     phase: str = "waiting"
     stalls: int = 0
@@ -360,45 +361,80 @@ class CaptureResult:
 
 
 class _RateTracker:
-    """A light running estimate of the cycle rate and phase, for display only.
+    """A light running estimate of the cycle rate, stalls and phase, for display only.
 
-    The final figures come from the offline timeline. Here: the period of a
-    cycle is the median of the last few click intervals (two intervals per
-    cycle when the clicks alternate in strength); phases from the trend of the
-    rate (common practice, no source).
+    The final figures come from the offline timeline. Here the cycle period is
+    the median over the last 8 cycles of ``t[i] - t[i - clicks_per_cycle]``
+    (so a two-click engine shows its cycle rate, not twice it); one or two
+    clicks per cycle is decided with :func:`popmeter.detection.assign_kinds`
+    on the last 32 clicks, refreshed every 8 clicks. A gap longer than 4 click
+    intervals that ends with a new click counts as a stall. Phases from the
+    trend of the rate: rising by over 5 % is startup, falling by over 8 % after
+    steady running is fade, an interquartile spread under 8 % is steady
+    (common practice, no source).
     """
 
-    def __init__(self) -> None:
+    def __init__(self, *, clicks_per_cycle: int | None = None,
+                 kinds: Callable[..., Any] | None = None) -> None:
+        self.recent: list[Any] = []
         self.times: list[float] = []
         self.trace: list[float] = []
         self.stalls = 0
         self.phase = "waiting"
         self.rate_hz: float | None = None
+        self.fixed_cpc = clicks_per_cycle
+        self.clicks_per_cycle = clicks_per_cycle or 1
+        self._kinds = kinds
+        self._since_kinds = 0
 
-    def add(self, time_s: float) -> None:
-        if self.times:
-            gap = time_s - self.times[-1]
-            period = self._median_interval()
-            if period is not None and gap > 4.0 * period:
-                self.stalls += 1
+    def add(self, click: Any, time_s: float) -> None:
+        interval = self._click_interval()
+        if self.times and interval is not None and time_s - self.times[-1] > 4.0 * interval:
+            self.stalls += 1
         self.times.append(time_s)
+        self.recent.append(click)
         if len(self.times) > 64:
             del self.times[:-64]
-        period = self._median_interval()
+            del self.recent[:-64]
+        self._decide_cpc()
+        period = self._period()
         if period:
             self.rate_hz = 1.0 / period
             self.trace.append(self.rate_hz)
             if len(self.trace) > RATE_TRACE_LEN:
                 del self.trace[:-RATE_TRACE_LEN]
-        self._update_phase(time_s)
+        self._update_phase()
 
-    def _median_interval(self) -> float | None:
+    def _decide_cpc(self) -> None:
+        self._since_kinds += 1
+        if self.fixed_cpc is not None or len(self.recent) < 12 or self._since_kinds < 8:
+            return
+        self._since_kinds = 0
+        if self._kinds is None:
+            from popmeter.detection import assign_kinds
+
+            self._kinds = assign_kinds
+        try:
+            _, self.clicks_per_cycle = self._kinds(self.recent[-32:])
+        except (AttributeError, TypeError, ValueError):
+            # clicks without the features assign_kinds needs (a stand-in
+            # detector): keep one click per cycle; the display only.
+            self.fixed_cpc = self.clicks_per_cycle
+
+    def _period(self) -> float | None:
+        k = self.clicks_per_cycle
+        if len(self.times) < k + 2:
+            return None
+        t = np.asarray(self.times[-(8 + k):])
+        spans = t[k:] - t[:-k]
+        return float(np.median(spans)) if np.all(spans > 0) else None
+
+    def _click_interval(self) -> float | None:
         if len(self.times) < 3:
             return None
-        iv = np.diff(self.times[-9:])
-        return float(np.median(iv)) if np.all(iv > 0) else None
+        return float(np.median(np.diff(self.times[-9:])))
 
-    def _update_phase(self, now_s: float) -> None:
+    def _update_phase(self) -> None:
         if len(self.trace) < 6:
             self.phase = "startup"
             return
@@ -413,11 +449,11 @@ class _RateTracker:
         elif spread < 0.08:
             self.phase = "steady"
 
-    def silent_for(self, now_s: float, period_factor: float = 4.0) -> None:
-        period = self._median_interval()
-        if self.times and period and now_s - self.times[-1] > period_factor * period:
-            if self.phase in ("steady", "fade", "startup"):
-                self.phase = "fade" if self.phase != "startup" else "startup"
+    def silent_for(self, now_s: float) -> None:
+        """No click for over 4 click intervals: show no rate, phase ``silent``."""
+        interval = self._click_interval()
+        if self.times and interval and now_s - self.times[-1] > 4.0 * interval:
+            self.phase = "silent"
             self.rate_hz = None
 
 
@@ -450,6 +486,9 @@ class CaptureSession:
     silence_stop_s : float, optional
         Once the first click has been heard, stop when no click has come for
         this much audio (s). Default None: no automatic stop.
+    clicks_per_cycle : {1, 2}, optional
+        For the live rate display only; default None decides from the clicks
+        (:func:`popmeter.detection.assign_kinds`).
     queue_seconds : float
         Capacity of the bounded queue in seconds of audio (default
         :data:`QUEUE_SECONDS`).
@@ -470,6 +509,7 @@ class CaptureSession:
         detector: Any = None,
         max_seconds: float | None = None,
         silence_stop_s: float | None = None,
+        clicks_per_cycle: int | None = None,
         queue_seconds: float = QUEUE_SECONDS,
         flush_interval_s: float = FLUSH_INTERVAL_S,
         clock: Callable[[], float] = _time.monotonic,
@@ -516,7 +556,7 @@ class CaptureSession:
         self.faults: list[str] = []
         self.clicks: list[Any] = []
         self.live_clicks: list[LiveClick] = []
-        self._rate = _RateTracker()
+        self._rate = _RateTracker(clicks_per_cycle=clicks_per_cycle)
         self._level_window: list[tuple[float, float, int]] = []  # (peak, sumsq, n)
         self._clipped_blocks = 0
         self._quiet_frames = 0
@@ -703,7 +743,7 @@ class CaptureSession:
                                                   level_dbfs=float(getattr(c, "level_dbfs", math.nan)),
                                                   seen_wall_s=now,
                                                   frames_received=self.frames_received))
-                self._rate.add(time_s)
+                self._rate.add(c, time_s)
 
     def _check_silence(self) -> None:
         now_s = self.frames_analysed / self.sample_rate_hz
@@ -739,6 +779,7 @@ class CaptureSession:
                 first_click_s=self.live_clicks[0].time_s if self.live_clicks else None,
                 last_click_s=self.live_clicks[-1].time_s if self.live_clicks else None,
                 rate_hz=self._rate.rate_hz,
+                clicks_per_cycle=self._rate.clicks_per_cycle,
                 rate_trace_hz=list(self._rate.trace),
                 phase=self._rate.phase,
                 stalls=self._rate.stalls,

@@ -114,6 +114,8 @@ def render(state: Any) -> Panel:
     else:
         rate.append("   -- Hz ", style="dim")
     rate.append(sparkline(state.rate_trace_hz), style=BRASS)
+    if getattr(state, "clicks_per_cycle", 1) == 2:
+        rate.append("  (2 clicks per cycle)", style="dim")
     grid.add_row("cycle rate", rate)
 
     if state.last_click_s is not None:

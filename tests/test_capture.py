@@ -500,3 +500,34 @@ def test_caution_line_names_flame_steam_children_and_mains():
     text = live_view.CAUTION_LINE.lower()
     for word in ("flame", "steam", "children", "mains", "does not certify"):
         assert word in text
+
+
+def test_live_rate_is_the_cycle_rate_for_one_and_two_click_engines():
+    from popmeter.detection import Click
+
+    def engine(clicks_per_cycle):
+        out = []
+        for k in range(40):  # 10 cycles per second
+            t = 0.5 + 0.1 * k
+            out.append(Click(time_s=t, sample=round(t * SR), level_dbfs=-10.0, strength=20.0,
+                             ring_hz=3000.0, decay_s=0.004))
+            if clicks_per_cycle == 2:  # weaker, higher, shorter second click 30 ms later
+                t2 = t + 0.03
+                out.append(Click(time_s=t2, sample=round(t2 * SR), level_dbfs=-22.0,
+                                 strength=12.0, ring_hz=4500.0, decay_s=0.002))
+        return out
+
+    for cpc in (1, 2):
+        tracker = capture._RateTracker()
+        for c in engine(cpc):
+            tracker.add(c, c.time_s)
+        assert tracker.clicks_per_cycle == cpc
+        assert tracker.rate_hz == pytest.approx(10.0, rel=1e-6)
+        assert tracker.phase == "steady" and tracker.stalls == 0
+        tracker.silent_for(5.0)
+        assert tracker.phase == "silent" and tracker.rate_hz is None
+    # a pause of 1 s inside a run is a stall
+    tracker = capture._RateTracker(clicks_per_cycle=1)
+    for t in [0.1 * k for k in range(20)] + [3.0 + 0.1 * k for k in range(5)]:
+        tracker.add(None, t)
+    assert tracker.stalls == 1
