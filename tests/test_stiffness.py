@@ -11,6 +11,7 @@ from __future__ import annotations
 import copy
 import json
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -296,3 +297,38 @@ def test_calibrate_errors():
         calibrate(prof, [(engine.predict(prof).rate_hz * 2, None)])
     with pytest.raises(CalibrationError, match="outside 0.3-2.0"):
         calibrate(prof, [(engine.predict(prof, polytropic_index=5.0).rate_hz, None)])
+
+
+def test_calibrate_files_writes_the_calibrated_copy(tmp_path, monkeypatch, capsys):
+    # analysis is replaced by a stub returning known rates (the pipeline has its own tests)
+    from types import SimpleNamespace
+
+    import popmeter.analysis
+    from popmeter.stiffness import calibrate_files
+
+    prof = example_profile()
+    boat = tmp_path / "boat.toml"
+    write_profile(prof, boat)
+    rates = {"a.wav": engine.predict(prof, polytropic_index=0.9).rate_hz,
+             "b.wav": engine.predict(prof, polytropic_index=0.9).rate_hz * 1.002,
+             "silent.wav": None}
+
+    def fake_analyze(path, boat=None):
+        assert boat is None
+        return SimpleNamespace(timeline=SimpleNamespace(summary={"steady_rate_hz": rates[Path(path).name]}),
+                               detection=SimpleNamespace(ring_hz=None))
+
+    monkeypatch.setattr(popmeter.analysis, "analyze_file", fake_analyze)
+    out = tmp_path / "cal.toml"
+    result = calibrate_files([tmp_path / n for n in rates], boat=boat, out=out)
+    text = " ".join(capsys.readouterr().out.split())  # rich wraps long lines
+    assert "silent.wav: no steady rate found; skipped" in text
+    assert result.polytropic_index == pytest.approx(0.9, rel=0.01)
+    cal = load_profile(out)
+    assert cal.gas.polytropic_index.value == pytest.approx(result.polytropic_index, rel=1e-3)
+    assert cal.raw["calibration"]["reference_units"] == 2
+    assert out.read_text().startswith("# Calibrated by popmeter from 2 reference unit(s)")
+    monkeypatch.setattr(popmeter.analysis, "analyze_file",
+                        lambda path, boat=None: fake_analyze(tmp_path / "silent.wav"))
+    with pytest.raises(CalibrationError, match="none of the recordings"):
+        calibrate_files([tmp_path / "silent.wav"], boat=boat, out=tmp_path / "x.toml")
