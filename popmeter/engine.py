@@ -109,9 +109,12 @@ def plate_geometry(profile: BoatProfile) -> PlateGeometry:
 def shape_coefficients(shape: str, aspect) -> tuple[np.ndarray, np.ndarray]:
     """Volume coefficient and lambda^2 of each mode for an array of aspect ratios.
 
-    Circle: constants. Rectangle: the finite-difference coefficients at the
-    extreme aspects (and the middle), linearly interpolated in between
-    (aspect tolerances are small, so three cached solves suffice).
+    Circle: constants. Rectangle: the finite-difference coefficients on a grid
+    of aspect ratios 0.01 apart covering the requested ones (cached, so
+    repeated estimates with similar draws reuse the solves), linearly
+    interpolated in between (the interpolation error is below 1e-4 relative
+    for the compliance and the fundamental; up to about 0.2 % for higher modes
+    near aspect ratios where two modes cross).
 
     Returns:
         ``(volume_coeff, lambda2)`` with shapes ``aspect.shape`` and ``aspect.shape + (modes,)``.
@@ -126,7 +129,9 @@ def shape_coefficients(shape: str, aspect) -> tuple[np.ndarray, np.ndarray]:
         c = plate.rectangle_coefficients(0.5 * (lo + hi))
         return (np.full(aspect.shape, c.volume_coeff),
                 np.broadcast_to(np.array(c.lambda2), aspect.shape + (len(c.lambda2),)).copy())
-    grid = np.linspace(lo, hi, 3)
+    step = 0.01
+    first, last = math.floor(lo / step), math.ceil(hi / step)
+    grid = np.arange(first, last + 1) * step
     cs = [plate.rectangle_coefficients(a) for a in grid]
     vol = np.interp(aspect, grid, [c.volume_coeff for c in cs])
     m = min(len(c.lambda2) for c in cs)
