@@ -49,6 +49,7 @@ from __future__ import annotations
 import dataclasses
 import json
 import math
+import textwrap
 from collections.abc import Iterable
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -142,6 +143,8 @@ class RunScenario:
       (no heating, no startup).
     * ``end_mid_run`` = False: the recording ends during steady running (no
       fade, no after).
+    * ``never_starts`` = False: the engine never starts: the whole recording
+      is heating (background only, no click).
 
     Startup pops: ``missed_pop_prob`` = 0.12 (probability that a startup
     cycle makes no click; the first never is), ``weak_pop_prob`` = 0.2
@@ -212,6 +215,7 @@ class RunScenario:
     wander_pct: float = 15.0
     start_mid_run: bool = False
     end_mid_run: bool = False
+    never_starts: bool = False
     missed_pop_prob: float = 0.12
     weak_pop_prob: float = 0.2
     startup_level_db: float = -12.0
@@ -243,6 +247,14 @@ class RunScenario:
     reverb_drr_db: float = 3.0
     distractors: tuple[Distractor | str, ...] = field(default_factory=tuple)
     seed: int = 0
+
+    def __post_init__(self) -> None:
+        # kind names become Distractor items; lists become tuples (hashable, comparable)
+        items = tuple(Distractor(d) if isinstance(d, str) else d for d in self.distractors)
+        object.__setattr__(self, "distractors", items)
+        for name in ("ring_modes_hz", "ring_mode_amplitudes", "ring_mode_decay_s",
+                     "second_click_mode_amplitudes", "stall_periods"):
+            object.__setattr__(self, name, tuple(getattr(self, name)))
 
     def replace(self, **changes: Any) -> RunScenario:
         """A copy with some fields changed (``dataclasses.replace``)."""
@@ -356,6 +368,8 @@ def _generate_cycles(
 
     cycles: list[_Cycle] = []
     stall_pairs: list[tuple[int, int]] = []
+    if s.never_starts:
+        return cycles, stall_pairs
     t = t_start
     if s.start_mid_run:
         t = rng.uniform(0.0, 1.0 / f_ss)
@@ -849,9 +863,6 @@ def _truth(s: RunScenario, plan: dict, cycles: list[_Cycle], stall_pairs, clicks
     if dropped_modes:
         warnings.append("ring modes above 0.45 x sample rate were left out")
     scenario_dict = dataclasses.asdict(s)
-    scenario_dict["distractors"] = [
-        {"kind": d} if isinstance(d, str) else dataclasses.asdict(d) for d in s.distractors
-    ]
     return {
         "schema": TRUTH_SCHEMA,
         "sample_rate_hz": fs,
@@ -874,6 +885,7 @@ def _truth(s: RunScenario, plan: dict, cycles: list[_Cycle], stall_pairs, clicks
         "never_settles": s.never_settles,
         "starts_mid_run": s.start_mid_run,
         "ends_mid_run": s.end_mid_run,
+        "never_starts": s.never_starts,
         "first_click_s": first_click,
         "last_click_s": last_click,
         "ring_hz": float(modes[0]),
@@ -892,6 +904,35 @@ def _truth(s: RunScenario, plan: dict, cycles: list[_Cycle], stall_pairs, clicks
 
 # --------------------------------------------------------------------------
 # files
+
+
+def scenario_from_truth(truth: dict) -> RunScenario:
+    """The :class:`RunScenario` recorded in a ground truth (its ``scenario`` key).
+
+    Rendering it again reproduces the recording exactly (same seed, same
+    parameters), which is how the bundled recordings are checked against the
+    generator.
+
+    Raises
+    ------
+    popmeter.errors.InputError
+        The truth holds no usable scenario.
+    """
+    raw = truth.get("scenario")
+    if not isinstance(raw, dict):
+        raise InputError("ground truth: no 'scenario' key")
+    names = {f.name for f in dataclasses.fields(RunScenario)}
+    unknown = sorted(set(raw) - names)
+    if unknown:
+        raise InputError(f"ground truth: unknown scenario keys {', '.join(unknown)}")
+    params: dict[str, Any] = {}
+    for key, value in raw.items():
+        if key == "distractors":
+            value = tuple(Distractor(**d) for d in value)
+        elif isinstance(value, list):
+            value = tuple(value)
+        params[key] = value
+    return RunScenario(**params)
 
 
 def truth_path_for(audio_path: str | Path) -> Path:
@@ -1038,11 +1079,37 @@ def simulate_to_file(
     if steady_rate_hz is not None:
         overrides["steady_rate_hz"] = float(steady_rate_hz)
     scenario, extra = _scenario_for_boat(boat, thickness_factor, overrides)
+    return write_run(path, scenario, extra=extra)
+
+
+def write_run(path: str | Path, scenario: RunScenario, *, extra: dict | None = None,
+              subtype: str | None = None) -> Path:
+    """Render a scenario and write the audio with its truth beside it.
+
+    Parameters
+    ----------
+    path : str or Path
+        Audio file (format from the extension); parent folders are created.
+    scenario : RunScenario
+        What to render.
+    extra : dict or None
+        Keys added to the truth (e.g. ``diaphragm`` and ``profile``, see
+        :func:`profile_truth`); default none.
+    subtype : str or None
+        libsndfile subtype; ``None`` (default) lets
+        :func:`popmeter.audio_io.write_audio` choose (16-bit PCM for WAV/FLAC).
+
+    Returns
+    -------
+    Path
+        The audio path.
+    """
     samples, truth = render(scenario)
-    truth.update(extra)
+    if extra:
+        truth.update(extra)
     out = Path(path)
     out.parent.mkdir(parents=True, exist_ok=True)
-    write_audio(out, samples, scenario.sample_rate_hz)
+    write_audio(out, samples, scenario.sample_rate_hz, subtype=subtype)
     write_truth(truth_path_for(out), truth)
     return out
 
@@ -1065,7 +1132,7 @@ def _scenario_for_boat(boat: Any, thickness_factor: float,
     else:
         prof = boat
     scenario = scenario_from_profile(prof, thickness_factor=thickness_factor, **overrides)
-    return scenario, _profile_truth(prof, thickness_factor)
+    return scenario, profile_truth(prof, thickness_factor)
 
 
 def scenario_from_profile(profile: Any, *, thickness_factor: float = 1.0,
@@ -1112,8 +1179,14 @@ def scenario_from_profile(profile: Any, *, thickness_factor: float = 1.0,
     return RunScenario(**params)
 
 
-def _profile_truth(profile: Any, thickness_factor: float) -> dict:
-    """Ground-truth keys that describe the boat: ``diaphragm`` and ``profile``."""
+def profile_truth(profile: Any, thickness_factor: float = 1.0) -> dict:
+    """Ground-truth keys that describe the boat: ``diaphragm`` and ``profile``.
+
+    ``diaphragm`` holds the true ``thickness_m`` (nominal x ``thickness_factor``),
+    the ``stiffness_kpa_per_ml`` and ``rigidity_n_m`` the engine model gives
+    for it, and the model's rate and ring; ``profile`` is the profile as
+    written in its file (file units).
+    """
     from popmeter.engine import predict
 
     thickness_m = profile.diaphragm.thickness_m.value * thickness_factor
@@ -1165,3 +1238,173 @@ diaphragm         {thickness_m, stiffness_kpa_per_ml, ...} when a boat profile w
 profile           the boat profile (raw dict) when one was used
 scenario          every RunScenario parameter;  seed: int
 """
+
+
+# --------------------------------------------------------------------------
+# the bundled demo recordings
+
+#: The invented demo boat (file units): a two-tube launch with a 28 mm round
+#: brass diaphragm.  No real product.
+DEMO_BOAT_RAW: dict[str, Any] = {
+    "name": "Kittiwake launch, 2 tubes",
+    "tubes": {"count": 2, "inner_diameter_mm": 3.2, "inner_diameter_mm_tol": 0.05,
+              "length_mm": 140.0, "length_mm_tol": 2.0, "outlet": "unflanged"},
+    "boiler": {"gas_volume_ml": 1.2, "gas_volume_ml_tol": 0.1},
+    "diaphragm": {"shape": "circle", "diameter_mm": 28.0, "diameter_mm_tol": 0.1,
+                  "thickness_mm": 0.12, "thickness_mm_tol": 0.005, "material": "brass",
+                  "wetted": False},
+    "gas": {"polytropic_index": 1.0, "polytropic_index_tol": 0.05, "pressure_kpa": 101.325},
+}
+
+DEMO_SPEC_TOML = """\
+# QC spec for the invented "Kittiwake launch" demo boat (demo_boat.toml).
+# The engine model puts a nominal unit (0.12 mm brass) at 12.4 cycles/s and
+# 144 kPa/mL; a 0.8x (thin) diaphragm at 10.7 Hz and 74 kPa/mL, a 1.25x
+# (thick) one at 13.7 Hz and 282 kPa/mL.
+name = "Kittiwake launch production"
+
+[limits.steady_rate_hz]
+min = 11.5
+max = 13.3
+target = 12.4
+
+[limits.time_to_steady_s]
+max = 20.0
+
+[limits.diaphragm_stiffness_kpa_per_ml]
+min = 105
+max = 190
+target = 144
+"""
+
+#: Demo batch: serial -> (what is wrong, thickness factor, seed, scenario changes).
+DEMO_BATCH: dict[str, tuple[str, float, int, dict[str, Any]]] = {
+    "KW-2611-001": ("good unit", 1.00, 201, {}),
+    "KW-2611-002": ("good unit, diaphragm 3 % thick", 1.03, 202, {}),
+    "KW-2611-003": ("good unit, diaphragm 2 % thin, a knock on the tank", 0.98, 203,
+                    {"distractors": (Distractor("knock"),)}),
+    "KW-2611-004": ("thin diaphragm (0.8 x gauge)", 0.80, 204, {}),
+    "KW-2611-005": ("thick diaphragm (1.25 x gauge)", 1.25, 205, {}),
+    "KW-2611-006": ("never starts (background only)", 1.00, 206, {"never_starts": True}),
+    "KW-2611-007": ("slow starter (24 s startup; 40 s recording)", 1.00, 207,
+                    {"duration_s": 40.0, "startup_s": 24.0}),
+    "KW-2611-008": ("staller (3 stalls in the fade)", 1.00, 208,
+                    {"stalls": 3, "fade_s": 8.0}),
+}
+DEMO_CORRUPT_SERIAL = "KW-2611-009"
+
+
+def make_demo_bundle(out_dir: str | Path, *, sample_rate_hz: int = 22050) -> Path:
+    """Write the demo recordings, boat, spec and batch into ``out_dir``.
+
+    The bundle the repository ships in ``synthetic_audio/`` and that
+    ``popmeter demo`` regenerates when it is missing.  Deterministic (fixed
+    seeds); 16-bit FLAC at ``sample_rate_hz`` (default 22050 Hz, enough for
+    the demo boat's first four plate modes, 1.1-5.3 kHz) keeps it small.
+
+    Contents: ``demo_boat.toml``, ``demo_spec.toml``, ``clean_run.flac``,
+    ``noisy_run.flac``, ``two_click_run.flac`` (each with ``.truth.json``),
+    ``batch_demo/`` (units ``KW-2611-001`` ... ``-009``, one of them a
+    corrupt WAV) and ``README.txt``.
+
+    Parameters
+    ----------
+    out_dir : str or Path
+        Folder to write into (created).
+    sample_rate_hz : int
+        Sample rate of every recording (default 22050 Hz).
+
+    Returns
+    -------
+    Path
+        ``out_dir``.
+    """
+    from popmeter.profile import parse_profile, write_profile
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    boat_path = out / "demo_boat.toml"
+    write_profile(dict(DEMO_BOAT_RAW), boat_path,
+                  comment="Invented demo boat for popmeter's bundled synthetic recordings.")
+    (out / "demo_spec.toml").write_text(DEMO_SPEC_TOML, encoding="utf-8")
+    profile = parse_profile(json.loads(json.dumps(DEMO_BOAT_RAW)), source=boat_path.name)
+
+    def run(path: Path, factor: float, **kw: Any) -> Path:
+        base: dict[str, Any] = {"sample_rate_hz": sample_rate_hz, "duration_s": 40.0,
+                                "heating_s": 3.0, "startup_s": 7.0, "fade_s": 6.0,
+                                "after_s": 2.5}
+        base.update(kw)
+        scenario = scenario_from_profile(profile, thickness_factor=factor, **base)
+        return write_run(path, scenario, extra=profile_truth(profile, factor))
+
+    runs = {
+        "clean_run.flac": ("40 s, one click per cycle, click-to-noise 35 dB, dry room", 1.0,
+                           {"seed": 101, "click_to_noise_db": 35.0}),
+        "noisy_run.flac": (("40 s, click-to-noise 15 dB, room reverberation (RT60 0.4 s), 50 Hz hum, "
+                           "a match strike, speech, a splash and a knock, 1 stall"), 1.0,
+                           {"seed": 102, "click_to_noise_db": 15.0, "reverb_rt60_s": 0.4,
+                            "hum_dbfs": -38.0, "stalls": 1,
+                            "distractors": (Distractor("match", time_s=1.0),
+                                            Distractor("speech", time_s=18.0),
+                                            Distractor("splash", time_s=25.5),
+                                            Distractor("knock", time_s=31.2))}),
+        "two_click_run.flac": (("40 s, two clicks per cycle (the second 6 dB weaker, brighter, "
+                               "shorter), click-to-noise 25 dB, 2 stalls"), 1.0,
+                               {"seed": 103, "click_to_noise_db": 25.0, "clicks_per_cycle": 2,
+                                "stalls": 2}),
+    }
+    lines = [
+        "popmeter bundled synthetic recordings",
+        "=====================================",
+        "",
+        "Every recording here was made by popmeter's own generator (popmeter.synth):",
+        "an invented boat, invented serial numbers, no real recordings. Regenerate",
+        "with:  python benchmarks/make_synthetic_audio.py",
+        "",
+        "Each NAME.flac has NAME.truth.json beside it (schema popmeter.truth/1):",
+        "every click (time and exact sample), cycle starts, phases, stalls, steady",
+        "rate, ring frequency, distractors, the diaphragm actually simulated and",
+        f"the boat profile.  16-bit FLAC, mono, {sample_rate_hz} Hz.",
+        "",
+        "demo_boat.toml   the demo boat: \"{}\" (28 mm round brass".format(DEMO_BOAT_RAW["name"]),
+        "                 diaphragm, 0.12 mm; two 3.2 mm tubes, 140 mm)",
+        "demo_spec.toml   its QC spec: steady rate 11.5-13.3 Hz, time to steady",
+        "                 <= 20 s, diaphragm stiffness 105-190 kPa/mL",
+        "",
+    ]
+    for name, (what, factor, kw) in runs.items():
+        run(out / name, factor, **kw)
+        lines.append(name)
+        lines += textwrap.wrap(what, width=74, initial_indent="    ", subsequent_indent="    ")
+    lines += ["", "batch_demo/  a production batch of the demo boat (serial = file name), 25 s",
+              "             per unit, click-to-noise 28 dB:"]
+    batch = out / "batch_demo"
+    batch.mkdir(exist_ok=True)
+    for serial, (what, factor, seed, kw) in DEMO_BATCH.items():
+        params: dict[str, Any] = {"duration_s": 25.0, "seed": seed, "click_to_noise_db": 28.0,
+                                  "heating_s": 3.0, "startup_s": 6.0, "fade_s": 5.0}
+        params.update(kw)
+        run(batch / f"{serial}.flac", factor, **params)
+        lines.append(f"  {serial}.flac  {what}")
+    # a recorder that died after writing the header: a WAV that holds no audio
+    corrupt = batch / f"{DEMO_CORRUPT_SERIAL}.wav"
+    frames = 30 * sample_rate_hz
+    header = (b"RIFF" + (36 + 2 * frames).to_bytes(4, "little") + b"WAVEfmt "
+              + (16).to_bytes(4, "little") + (1).to_bytes(2, "little")
+              + (1).to_bytes(2, "little") + sample_rate_hz.to_bytes(4, "little")
+              + (2 * sample_rate_hz).to_bytes(4, "little") + (2).to_bytes(2, "little")
+              + (16).to_bytes(2, "little") + b"data" + (2 * frames).to_bytes(4, "little"))
+    corrupt.write_bytes(header)
+    lines += [f"  {DEMO_CORRUPT_SERIAL}.wav   corrupt: a WAV header promising 30 s, no audio",
+              "",
+              "Intended verdicts against demo_spec.toml: 001-003 PASS; 004 (thin) and",
+              "005 (thick) FAIL on stiffness and rate; 006 FAIL (no clicks: null",
+              "metrics); 007 FAIL on time to steady; 008 within limits, its stalls",
+              "listed; 009 ERROR (no audio).",
+              "",
+              "Synthetic test signals only.  popmeter measures; it does not certify the",
+              "safety of any boat (open flame, hot boiler, steam: follow local codes",
+              "and toy-safety regulations).",
+              ""]
+    (out / "README.txt").write_text("\n".join(lines), encoding="utf-8")
+    return out

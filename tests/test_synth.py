@@ -5,6 +5,7 @@ from __future__ import annotations
 import itertools
 import json
 import math
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -380,3 +381,59 @@ def test_simulate_to_file_records_the_diaphragm(tmp_path):
     # a thinner plate rings lower (f ~ h) and the engine runs slower
     assert t_thin["ring_hz"] == pytest.approx(0.8 * t_nom["ring_hz"], rel=1e-6)
     assert t_thin["steady_rate_hz"] < t_nom["steady_rate_hz"]
+
+
+def test_never_starts_is_background_only():
+    x, truth = render(short(seed=18, never_starts=True, click_to_noise_db=30.0))
+    assert truth["clicks"] == [] and truth["cycle_starts_s"] == []
+    assert truth["steady_rate_hz"] is None and truth["first_click_s"] is None
+    assert [p["name"] for p in truth["phases"]] == ["heating"]
+    assert np.std(x) > 0  # background noise is there
+
+
+def test_scenario_from_truth_reproduces_the_recording():
+    from popmeter.synth import scenario_from_truth
+
+    s = short(seed=19, clicks_per_cycle=2, stalls=1,
+              distractors=(Distractor("match", time_s=1.0), "knock"))
+    x, truth = render(s)
+    again = scenario_from_truth(json.loads(json.dumps(truth)))
+    assert again == s
+    y, truth2 = render(again)
+    assert np.array_equal(x, y) and truth2 == truth
+
+
+BUNDLE = Path(__file__).resolve().parent.parent / "synthetic_audio"
+
+
+@pytest.mark.skipif(not (BUNDLE / "clean_run.flac").exists(), reason="no synthetic_audio/ bundle")
+@pytest.mark.parametrize("name", ["clean_run.flac", "two_click_run.flac",
+                                  "batch_demo/KW-2611-008.flac"])
+def test_bundled_recordings_match_their_truth(name):
+    # the shipped audio is the generator's output for the scenario in its truth
+    # (regenerate with benchmarks/make_synthetic_audio.py when the generator changes)
+    import soundfile as sf
+
+    from popmeter.synth import scenario_from_truth
+
+    path = BUNDLE / name
+    truth = load_truth(path)
+    audio, fs = sf.read(str(path), dtype="float32", always_2d=True)
+    assert fs == truth["sample_rate_hz"] and len(audio) == truth["frames"]
+    x, again = render(scenario_from_truth(truth))
+    assert [c["sample"] for c in again["clicks"]] == [c["sample"] for c in truth["clicks"]]
+    assert np.max(np.abs(audio - x)) <= 1.0 / 32768  # 16-bit rounding only
+
+
+@pytest.mark.skipif(not (BUNDLE / "demo_spec.toml").exists(), reason="no synthetic_audio/ bundle")
+def test_bundled_boat_and_spec_load():
+    from popmeter.engine import predict
+    from popmeter.profile import load_profile
+    from popmeter.qc_spec import load_spec
+
+    boat = load_profile(BUNDLE / "demo_boat.toml")
+    spec = load_spec(BUNDLE / "demo_spec.toml")
+    assert spec is not None
+    truth = load_truth(BUNDLE / "clean_run.flac")
+    assert truth["profile"]["name"] == boat.name
+    assert truth["ring_hz"] == pytest.approx(predict(boat).ring_hz)
