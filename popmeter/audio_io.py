@@ -45,6 +45,7 @@ import io
 import json
 import math
 import os
+import re
 import shutil
 import struct
 import subprocess
@@ -114,6 +115,12 @@ CHANNEL_CHOICE_WINDOW_S = 60.0
 #: flame roar and sloshing, keeps the diaphragm ring (several hundred Hz to a
 #: few kHz, physics.md).
 CHOICE_HIGHPASS_HZ = 300.0
+
+#: Below this best click-to-noise ratio (dB) the channel choice is reported as
+#: unclear: white noise alone scores 12-14 dB on the measure (8-192 kHz, see
+#: :func:`click_to_noise_db`), so 15 dB leaves 1-3 dB of margin. Common
+#: practice, no source.
+CHOICE_UNCLEAR_DB = 15.0
 
 #: Output formats of :func:`write_audio`, by file extension:
 #: (libsndfile major format or "ffmpeg", default subtype or codec).
@@ -362,7 +369,7 @@ class _SndReader:
             except (sf.LibsndfileError, RuntimeError):
                 if step <= 64:
                     self.done = True
-                    self.damage = first_error
+                    self.damage = first_error.rstrip(".")
                     break
                 step = max(step // 4, 64)
         if not pieces:
@@ -424,10 +431,9 @@ class _FfmpegReader:
             self._proc.kill()
             code = -1
         self._stderr.seek(0)
-        text = self._stderr.read().decode("utf-8", "replace").strip()
+        text = _ffmpeg_said(self._stderr.read().decode("utf-8", "replace"))
         if code != 0 or text:
-            lines = [ln.strip() for ln in text.splitlines() if ln.strip()]
-            self.damage = lines[-1] if lines else f"ffmpeg exited with code {code}"
+            self.damage = text or f"ffmpeg exited with code {code}"
 
     def close(self) -> None:
         if self._proc.poll() is None:
@@ -488,6 +494,14 @@ def _looks_like_ffmpeg_container(path: str) -> bool:
     )
 
 
+def _ffmpeg_said(stderr_text: str) -> str:
+    """ffmpeg's messages on one line, without the ``[demuxer @ 0x...]`` prefixes."""
+    lines = [re.sub(r"\[[^\]]*@ 0x[0-9a-f]+\]\s*", "", ln).strip()
+             for ln in stderr_text.splitlines()]
+    lines = [ln for ln in lines if ln]
+    return "; ".join(dict.fromkeys(lines))[:300]
+
+
 def _fmt_s(frames: int, rate_hz: int) -> str:
     return f"{frames / rate_hz:.2f} s"
 
@@ -504,7 +518,7 @@ def _open_source(path: str) -> _Source:
         if "not recognised" in message or "unknown format" in message.lower():
             return _open_ffmpeg(path)
         detail = message.split(":", 1)[-1].strip() if "Error opening" in message else message
-        raise InputError(f"{path}: unreadable audio file ({detail})") from None
+        raise InputError(f"{path}: unreadable audio file (libsndfile: {detail.rstrip('.')})") from None
 
     warnings: list[str] = []
     _check_rate(path, rate)
@@ -599,6 +613,14 @@ def _open_ffmpeg(path: str) -> _Source:
         meta = {}
     streams = meta.get("streams") or []
     if done.returncode != 0 or not streams:
+        said = _ffmpeg_said(done.stderr.decode("utf-8", "replace"))
+        if "moov atom not found" in said:
+            raise InputError(
+                f"{path}: unreadable MP4/M4A: its index (moov atom) is missing, as when the "
+                "recorder stopped before finishing the file; no audio can be recovered"
+            )
+        if Path(path).suffix.lower() in _FFMPEG_EXTENSIONS and said and not streams:
+            raise InputError(f"{path}: unreadable audio file (ffmpeg: {said})")
         raise InputError(f"{path}: not an audio file (neither libsndfile nor ffmpeg can read it)")
     st = streams[0]
     try:
@@ -850,10 +872,11 @@ class AudioStream:
             self.channel_scores_db = [float(s) for s in scores]
             self.channel_used = int(np.argmax(scores))
             best = float(scores[self.channel_used])
-            if best < 20.0:
+            if best < CHOICE_UNCLEAR_DB:
+                judged_s = min(choice_window_s, self.info.duration_s)
                 self.warnings.append(
                     f"channel choice: no channel shows clear clicks in the first "
-                    f"{choice_window_s:.0f} s (best click-to-noise {best:.1f} dB, channel "
+                    f"{judged_s:.0f} s (best click-to-noise {best:.1f} dB, channel "
                     f"{self.channel_used}); pass --channel N to choose another"
                 )
         if source.declared_frames is not None:
@@ -929,7 +952,15 @@ class AudioStream:
             if damage:
                 raise InputError(f"{path}: unreadable, no audio could be decoded ({damage})")
             raise InputError(f"{path}: holds no audio (0 frames)")
-        if damage:
+        if damage and self._source.via_ffmpeg:
+            rest = ""
+            if info.frames > n + rate // 10:
+                rest = f" of the {info.frames / rate:.2f} s the container declares"
+            self.warnings.append(
+                f"damaged: ffmpeg reported errors while decoding ({damage}); read "
+                f"{n / rate:.2f} s{rest}; audio near the errors may be missing"
+            )
+        elif damage:
             rest = ""
             if info.frames > n:
                 rest = f" of the {info.frames / rate:.2f} s declared"
