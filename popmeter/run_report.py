@@ -119,7 +119,7 @@ def write_run_report(analysis: Any, out_dir: Path, *, audio_path: Path | None = 
             ),
         )
     )
-    _levels_figure(det.clicks, tl, out / "levels.png")
+    _levels_figure(det.clicks, tl, src.duration_s, out / "levels.png")
     figures.append(("levels.png", "Click level", "Peak level of every click, by kind."))
 
     audio_ok = audio_path is not None and Path(audio_path).exists()
@@ -258,7 +258,7 @@ def _rate_figure(tl: Any, duration_s: float, path: Path) -> None:
     _save(fig, path)
 
 
-def _levels_figure(clicks: Sequence[Any], tl: Any, path: Path) -> None:
+def _levels_figure(clicks: Sequence[Any], tl: Any, duration_s: float, path: Path) -> None:
     fig = _new_figure(10.0, 2.8)
     ax = fig.add_subplot(1, 1, 1)
     _style(ax)
@@ -286,6 +286,7 @@ def _levels_figure(clicks: Sequence[Any], tl: Any, path: Path) -> None:
         ax.text(0.5, 0.5, "no clicks", transform=ax.transAxes, ha="center", color=_INK)
     ax.set_xlabel("time in recording (s)", color=_INK, fontsize=9)
     ax.set_ylabel("click peak (dBFS)", color=_INK, fontsize=9)
+    ax.set_xlim(0, duration_s)
     fig.tight_layout()
     _save(fig, path)
 
