@@ -561,6 +561,8 @@ def run_batch(
             )
         )
     by_serial = {u.serial: u for u in inputs}
+    if tasks:
+        _preload(analyzer is None, unit_reports and report_writer is None)
     n_jobs = min(jobs or _default_jobs(), max(1, len(tasks)))
 
     def done(task: _Task, outcome: dict[str, Any]) -> None:
@@ -607,6 +609,24 @@ def run_batch(
     if progress:
         print_batch_summary(result)
     return result
+
+
+def _preload(pipeline: bool, reports: bool) -> None:
+    """Import the pipeline once in this process: forked workers inherit the
+    modules instead of each importing numpy/scipy/librosa again."""
+    import importlib
+
+    names = []
+    if pipeline:
+        names += ["popmeter.analysis", "popmeter.audio_io", "popmeter.detection",
+                  "popmeter.timeline", "popmeter.stiffness", "popmeter.engine"]
+    if reports:
+        names += ["popmeter.run_report"]
+    for name in names:
+        try:
+            importlib.import_module(name)
+        except ImportError:  # the worker reports it as the unit's error
+            pass
 
 
 def _unit_result(unit: UnitInput, outcome: dict[str, Any]) -> UnitResult:

@@ -329,14 +329,16 @@ def _finite(value: Any) -> bool:
 
 
 def _violations_caption(chart: IndividualsChart, labels: list[str]) -> str:
+    legend = ("Individuals (top) and moving-range (bottom) chart; solid: centre line; dashed: "
+              "control limits (3 sigma within); dotted red: spec limits. ")
     if not chart.violations:
-        return ('<figcaption class="note">Individuals and moving-range chart: no Western '
-                "Electric rule broken.</figcaption>")
+        return f'<figcaption class="note">{legend}No Western Electric rule broken.</figcaption>'
+
     items = "".join(
         f"<li>{_e(v.chart)} rule {v.rule} at {_e(labels[v.index])}: {_e(v.description)}</li>"
         for v in chart.violations
     )
-    return f'<figcaption class="note">Rule violations:<ul>{items}</ul></figcaption>'
+    return f'<figcaption class="note">{legend}Rule violations:<ul>{items}</ul></figcaption>'
 
 
 def write_batch_report(result: BatchResult, out_dir: str | os.PathLike[str]) -> Path:
@@ -347,6 +349,11 @@ def write_batch_report(result: BatchResult, out_dir: str | os.PathLike[str]) -> 
 
 
 # --- terminal ------------------------------------------------------------------------
+
+
+def _breakable(name: str) -> str:
+    """A metric name that a narrow terminal may wrap at its underscores."""
+    return name.replace("_", "_\u200b")
 
 
 def print_batch_summary(result: BatchResult, *, console: Any = None, max_rows: int = 40) -> None:
@@ -377,16 +384,17 @@ def print_batch_summary(result: BatchResult, *, console: Any = None, max_rows: i
         if len(bad) > max_rows:
             table.add_row("…", "", f"{len(bad) - max_rows} more in results.csv")
         con.print(table)
-    stats = Table(title="batch statistics", title_justify="left")
-    for col in ("metric", "limits", "n", "mean", "sd", "yield", "Cpk (95 %)", "Ppk", "outliers"):
-        stats.add_column(col, justify="left" if col in ("metric", "limits") else "right")
+    stats = Table(title="batch statistics (Cpk interval: 95 %, Bissell)", title_justify="left")
+    stats.add_column("metric", overflow="fold")
+    for col in ("n", "mean", "sd", "yield", "Cpk", "Cpk 95 %", "Ppk", "outl."):
+        stats.add_column(col, justify="right", no_wrap=True)
     for metric, st in result.stats.items():
-        ci = (f"{_fmt(st.cpk, 3)} ({_fmt(st.cpk_low, 3)}…{_fmt(st.cpk_high, 3)})"
-              if st.cpk is not None else "—")
+        ci = f"{_fmt(st.cpk_low, 2)}…{_fmt(st.cpk_high, 2)}" if st.cpk_low is not None else "—"
         stats.add_row(
-            metric, _limits_text(st.lsl, st.usl), str(st.n), _fmt(st.mean), _fmt(st.sd),
-            f"{100 * st.yield_frac:.1f} %" if st.yield_frac is not None else "—",
-            ci, _fmt(st.ppk, 3), str(len(st.outliers)),
+            f"{_breakable(metric)}\n[dim]{escape(_limits_text(st.lsl, st.usl))}[/]", str(st.n),
+            _fmt(st.mean), _fmt(st.sd, 3),
+            f"{100 * st.yield_frac:.0f} %" if st.yield_frac is not None else "—",
+            _fmt(st.cpk, 3), ci, _fmt(st.ppk, 3), str(len(st.outliers)),
         )
     con.print(stats)
     con.print(f"report: {escape(str(result.out_dir / 'index.html'))}")
@@ -456,9 +464,9 @@ def show_history(
         con.print("no metric values stored yet")
         return
     table = Table(title="individuals charts (all units, batch order)", title_justify="left")
-    for col in ("metric", "units", "batches", "centre", "LCL", "UCL", "MR mean", "MR UCL",
-                "violations"):
-        table.add_column(col, justify="left" if col == "metric" else "right")
+    table.add_column("metric", overflow="fold", ratio=3)
+    for col in ("units", "batches", "centre", "LCL", "UCL", "MR mean", "MR UCL", "rules"):
+        table.add_column(col, justify="right", overflow="fold", ratio=1)
     viol_table = Table(title="Western Electric rule violations", title_justify="left")
     for col in ("metric", "chart", "rule", "batch", "serial", "value", "what"):
         viol_table.add_column(col)
@@ -467,12 +475,14 @@ def show_history(
         points = series[name]
         batches_here = len({p.batch_id for p in points})
         if len(points) < 2:
-            table.add_row(name, str(len(points)), str(batches_here), *["—"] * 5, "n < 2")
+            table.add_row(_breakable(name), str(len(points)), str(batches_here), *["—"] * 5,
+                          "n < 2")
             continue
         chart = individuals_chart(np.array([p.value for p in points]))
         charts[name] = (chart, points)
         table.add_row(
-            name, str(len(points)), str(batches_here), _fmt(chart.center), _fmt(chart.lcl),
+            _breakable(name), str(len(points)), str(batches_here), _fmt(chart.center),
+            _fmt(chart.lcl),
             _fmt(chart.ucl), _fmt(chart.mr_mean), _fmt(chart.mr_ucl), str(len(chart.violations)),
         )
         for v in chart.violations:

@@ -320,3 +320,49 @@ def test_history_command_terminal_and_report(tmp_path):
         show_history(db=db, metric="speed", console=Console(file=io.StringIO()))
     with pytest.raises(HistoryError, match="no history database"):
         show_history(db=tmp_path / "none.sqlite", console=Console(file=io.StringIO()))
+
+
+def test_end_to_end_with_the_real_pipeline(tmp_path):
+    # a few short generated recordings through popmeter.analysis and
+    # popmeter.run_report: a good unit, a thin diaphragm, an engine that never
+    # starts, and a WAV whose header promises audio that is not there
+    synth = pytest.importorskip("popmeter.synth")
+    pytest.importorskip("popmeter.analysis")
+    from popmeter.profile import parse_profile, write_profile
+
+    boat = tmp_path / "boat.toml"
+    write_profile(dict(synth.DEMO_BOAT_RAW), boat, comment="invented test boat")
+    profile = parse_profile(json.loads(json.dumps(synth.DEMO_BOAT_RAW)), source=str(boat))
+    src = tmp_path / "KW-test"
+    base = {"sample_rate_hz": 22050, "duration_s": 14.0, "heating_s": 1.5, "startup_s": 3.0,
+            "fade_s": 3.0, "after_s": 1.0, "click_to_noise_db": 28.0}
+    plan = {"KW-1": (1.0, 1, {}), "KW-2": (0.8, 2, {}), "KW-3": (1.0, 4, {"never_starts": True})}
+    for serial, (factor, seed, extra) in plan.items():
+        scenario = synth.scenario_from_profile(profile, thickness_factor=factor,
+                                               **{**base, "seed": seed, **extra})
+        synth.write_run(src / f"{serial}.flac", scenario)
+    header = (b"RIFF" + (36 + 44100).to_bytes(4, "little") + b"WAVEfmt "
+              + (16).to_bytes(4, "little") + (1).to_bytes(2, "little") + (1).to_bytes(2, "little")
+              + (22050).to_bytes(4, "little") + (44100).to_bytes(4, "little")
+              + (2).to_bytes(2, "little") + (16).to_bytes(2, "little")
+              + b"data" + (44100).to_bytes(4, "little"))
+    (src / "KW-4.wav").write_bytes(header)
+    spec = spec_from_dict({"name": "e2e", "limits": {
+        "steady_rate_hz": {"min": 11.5, "max": 13.3},
+        "time_to_steady_s": {"max": 15.0},
+        "diaphragm_stiffness_kpa_per_ml": {"min": 105.0, "max": 190.0},
+    }})
+    out = tmp_path / "out"
+    result = run_batch(src, spec=spec, boat=boat, out_dir=out, jobs=2, progress=False)
+    got = {u.serial: u for u in result.units}
+    assert {s: u.status for s, u in got.items()} == {
+        "KW-1": "PASS", "KW-2": "FAIL", "KW-3": "FAIL", "KW-4": "ERROR"}
+    assert any(r.startswith("diaphragm_stiffness_kpa_per_ml = ") and "below min 105" in r
+               for r in got["KW-2"].verdict.reasons)
+    assert "steady_rate_hz: no value (could not be determined)" in got["KW-3"].verdict.reasons
+    # the real run report is linked from the batch page
+    assert got["KW-1"].report == "units/KW-1/index.html"
+    assert (out / got["KW-1"].report).is_file()
+    assert 'href="units/KW-1/index.html"' in (out / "index.html").read_text()
+    analysis = json.loads((out / "units" / "KW-1" / "analysis.json").read_text())
+    assert analysis["schema"] == "popmeter.analysis/1"
