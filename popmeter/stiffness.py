@@ -82,7 +82,8 @@ class Interval:
 
 
 def _interval(samples: np.ndarray, scale: float = 1.0) -> Interval:
-    lo, mid, hi = np.quantile(samples, [0.05, 0.5, 0.95])
+    # "nearest" keeps a few infinite draws (rate only: stiffer than rigid) from turning a quantile into nan
+    lo, mid, hi = np.quantile(samples, [0.05, 0.5, 0.95], method="nearest")
     return Interval(float(mid * scale), float(lo * scale), float(hi * scale))
 
 
@@ -98,7 +99,8 @@ class StiffnessEstimate:
         gas_volume_ml: effective gas volume, mL (only with the ring).
         warnings: plain-language reasons and cautions.
         nominal_stiffness_kpa_per_ml: the profile's nominal stiffness (for the report).
-        samples_kpa_per_ml: the Monte Carlo draws of the stiffness (None when not determined).
+        samples_kpa_per_ml: the Monte Carlo draws of the stiffness (None when not determined;
+            rate only: draws that need a diaphragm stiffer than rigid are left out).
         nominal_thickness_mm: the profile's nominal gauge, mm.
         lower_bound_kpa_per_ml: rate only: a lower bound on the stiffness when the upper end is unbounded.
         draws: number of Monte Carlo draws.
@@ -311,13 +313,20 @@ def estimate_stiffness(profile: BoatProfile, *, rate_hz: float, rate_sd_hz: floa
             f"stiffness at least {lower:.3g} kPa/mL (95 % one-sided); measure the ring or tighten the gas "
             "volume to get a value")
         return _refused(nominal_k, nominal_h_mm, warnings, draws, "rate", lower)
-    k_kpa_ml = KPA_PER_ML / c_p
-    stiffness = _interval(k_kpa_ml)
-    d = vol_coeff * scale**6 / c_p
+    # Up to 5 % of the draws may still have C_p <= 0 (a diaphragm stiffer than rigid): they count as
+    # infinitely stiff, at the top of the distribution; K = 1/C_p is monotone, so its quantiles are
+    # those of C_p, inverted.
+    stiffness = Interval(float(KPA_PER_ML / q50), float(KPA_PER_ML / q95), float(KPA_PER_ML / q05))
+    safe = np.where(positive, c_p, 1.0)
+    k_kpa_ml = (KPA_PER_ML / safe)[positive]
+    d = np.where(positive, vol_coeff * scale**6 / safe, np.inf)
     h = np.cbrt(12.0 * (1.0 - nu**2) * d / e)
     width_pct = 100.0 * (stiffness.high - stiffness.low) / stiffness.value
     warnings.append(f"{prefix}: weakly determined, the 90 % interval spans {width_pct:.0f} % of the value "
                     f"({stiffness.low:.3g}-{stiffness.high:.3g} kPa/mL); the gas volume is not measured")
+    if not positive.all():
+        warnings.append(f"{(1 - frac_pos) * 100:.2g} % of the draws need a diaphragm stiffer than rigid; "
+                        "they count as infinitely stiff and are left out of the histogram samples")
     thickness = _interval(h, 1e3)
     if thickness.high < nominal_h_mm - h_tol_mm or thickness.low > nominal_h_mm + h_tol_mm:
         warnings.append(f"the rate implies an equivalent thickness of {thickness.value:.3g} mm "

@@ -183,6 +183,19 @@ def test_rate_only_refuses_when_inconsistent_or_unbounded():
     assert any("at least" in w and "unbounded" in w for w in est.warnings)
 
 
+def test_rate_only_with_a_few_stiffer_than_rigid_draws():
+    # 1 +- 0.5 mL: a few draws leave no room for the diaphragm; they count as infinitely stiff
+    prof = _profile(boiler={"gas_volume_ml": 1.0, "gas_volume_ml_tol": 0.5})
+    pred = engine.predict(prof)
+    est = estimate_stiffness(prof, rate_hz=pred.rate_hz, rate_sd_hz=0.05)
+    k = est.stiffness_kpa_per_ml
+    assert k is not None and all(math.isfinite(v) for v in (k.low, k.value, k.high))
+    assert k.contains(pred.stiffness_kpa_per_ml)
+    assert np.all(np.isfinite(est.samples_kpa_per_ml)) and est.samples_kpa_per_ml.size < 20000
+    assert any("stiffer than rigid" in w for w in est.warnings)
+    assert est.warnings[0].startswith("no ring was measured")
+
+
 def test_no_rate_or_bad_ring():
     prof = example_profile()
     est = estimate_stiffness(prof, rate_hz=float("nan"), rate_sd_hz=0.1)
