@@ -34,6 +34,7 @@ from typing import Any
 import numpy as np
 
 from popmeter import plate
+from popmeter.plate import FloatOrArray
 from popmeter.profile import BoatProfile, load_profile
 
 #: Outlet end corrections as a fraction of the tube radius.
@@ -52,7 +53,7 @@ SAFETY_NOTE = ("Caution: a running boat means an open flame, a hot boiler and st
 # --- vectorised building blocks (numpy arrays or floats) ------------------------------
 
 
-def end_correction_m(radius_m, *, outlet: str = "unflanged"):
+def end_correction_m(radius_m: FloatOrArray, *, outlet: str = "unflanged") -> FloatOrArray:
     """Outlet end correction ``dL`` in m for a tube of inner radius ``radius_m`` (m).
 
     ``outlet``: ``"unflanged"`` (default, a bare tube end; 0.6133 r, Levine &
@@ -61,22 +62,27 @@ def end_correction_m(radius_m, *, outlet: str = "unflanged"):
     return END_CORRECTION[outlet] * radius_m
 
 
-def inertance_kg_m4(*, inner_diameter_m, length_m, count=1, outlet: str = "unflanged",
-                    water_density_kg_m3=998.0):
+def inertance_kg_m4(*, inner_diameter_m: FloatOrArray, length_m: FloatOrArray, count: FloatOrArray = 1,
+                    outlet: str = "unflanged", water_density_kg_m3: FloatOrArray = 998.0) -> FloatOrArray:
     """Inertance of ``count`` identical water columns in parallel, kg/m^4.
 
     ``M = rho_w (L + dL) / (pi r^2 count)`` with the outlet end correction.
+    Defaults: one tube, a bare (unflanged) end, water at 998 kg/m^3 (near 20 C).
     """
     r = inner_diameter_m / 2.0
     return water_density_kg_m3 * (length_m + end_correction_m(r, outlet=outlet)) / (math.pi * r**2 * count)
 
 
-def gas_compliance_m3_pa(*, gas_volume_m3, polytropic_index=1.0, pressure_pa=101325.0):
-    """Compliance of the gas spring ``V_g / (n_poly p0)``, m^3/Pa."""
+def gas_compliance_m3_pa(*, gas_volume_m3: FloatOrArray, polytropic_index: FloatOrArray = 1.0,
+                         pressure_pa: FloatOrArray = 101325.0) -> FloatOrArray:
+    """Compliance of the gas spring ``V_g / (n_poly p0)``, m^3/Pa.
+
+    Defaults: isothermal (n_poly = 1), one standard atmosphere (101 325 Pa).
+    """
     return gas_volume_m3 / (polytropic_index * pressure_pa)
 
 
-def cycle_rate_hz(*, inertance_kg_m4, compliance_m3_pa):
+def cycle_rate_hz(*, inertance_kg_m4: FloatOrArray, compliance_m3_pa: FloatOrArray) -> FloatOrArray:
     """Natural frequency ``1 / (2 pi sqrt(M C))`` of the water columns on the springs, Hz."""
     return 1.0 / (2.0 * math.pi * np.sqrt(inertance_kg_m4 * compliance_m3_pa))
 

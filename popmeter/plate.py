@@ -36,6 +36,9 @@ import numpy as np
 import scipy.sparse as sp
 import scipy.sparse.linalg as spla
 
+FloatOrArray = float | np.ndarray
+"""A float or a numpy array of floats (the vectorised functions accept either)."""
+
 #: Frequency parameters lambda^2 = omega a^2 sqrt(rho h / D) of the clamped
 #: circular plate, a = radius (Leissa, NASA SP-160, 1969, Table 2.1; values
 #: recomputed from the exact Bessel-function roots, physics.md).
@@ -46,7 +49,8 @@ CIRCLE_LAMBDA2: tuple[float, ...] = (10.2158, 21.2604, 34.8770, 39.7711, 51.0300
 LAMB_GAMMA = 0.6689
 
 
-def flexural_rigidity(youngs_modulus_pa, thickness_m, poisson_ratio):
+def flexural_rigidity(youngs_modulus_pa: FloatOrArray, thickness_m: FloatOrArray,
+                      poisson_ratio: FloatOrArray) -> FloatOrArray:
     """Flexural rigidity ``D = E h^3 / (12 (1 - nu^2))`` in N m (array-friendly)."""
     return youngs_modulus_pa * thickness_m**3 / (12.0 * (1.0 - poisson_ratio**2))
 
@@ -54,7 +58,8 @@ def flexural_rigidity(youngs_modulus_pa, thickness_m, poisson_ratio):
 # --- closed-form clamped circle ---------------------------------------------------
 
 
-def circle_deflection_m(r_m, *, radius_m: float, pressure_pa: float, rigidity_n_m: float):
+def circle_deflection_m(r_m: FloatOrArray, *, radius_m: float, pressure_pa: float,
+                        rigidity_n_m: float) -> np.ndarray:
     """Deflection ``w(r) = q (a^2 - r^2)^2 / (64 D)`` of a clamped circular plate, m.
 
     Timoshenko & Woinowsky-Krieger (1959), eq. (62). ``r_m`` may be an array; zero outside the plate.
@@ -64,17 +69,19 @@ def circle_deflection_m(r_m, *, radius_m: float, pressure_pa: float, rigidity_n_
     return np.where(np.abs(r) <= radius_m, w, 0.0)
 
 
-def circle_volume_m3(*, radius_m, pressure_pa, rigidity_n_m):
+def circle_volume_m3(*, radius_m: FloatOrArray, pressure_pa: FloatOrArray,
+                     rigidity_n_m: FloatOrArray) -> FloatOrArray:
     """Displaced volume ``pi q a^6 / (192 D)`` of a clamped circular plate, m^3."""
     return math.pi * pressure_pa * radius_m**6 / (192.0 * rigidity_n_m)
 
 
-def circle_compliance_m3_pa(*, radius_m, rigidity_n_m):
+def circle_compliance_m3_pa(*, radius_m: FloatOrArray, rigidity_n_m: FloatOrArray) -> FloatOrArray:
     """Volumetric compliance ``pi a^6 / (192 D)`` of a clamped circular plate, m^3/Pa."""
     return math.pi * radius_m**6 / (192.0 * rigidity_n_m)
 
 
-def mode_frequency_hz(lambda2, *, length_m, rigidity_n_m, surface_density_kg_m2):
+def mode_frequency_hz(lambda2: FloatOrArray, *, length_m: FloatOrArray, rigidity_n_m: FloatOrArray,
+                      surface_density_kg_m2: FloatOrArray) -> FloatOrArray:
     """``f = lambda^2 / (2 pi L^2) sqrt(D / (rho h))`` in Hz for a frequency parameter ``lambda2``.
 
     ``L`` is the radius of a circle or the short side of a rectangle.
@@ -90,12 +97,14 @@ def circle_mode_frequencies_hz(*, radius_m: float, rigidity_n_m: float,
             for l2 in CIRCLE_LAMBDA2[:modes]]
 
 
-def lamb_wet_factor(*, radius_m, surface_density_kg_m2, water_density_kg_m3=998.0):
+def lamb_wet_factor(*, radius_m: FloatOrArray, surface_density_kg_m2: FloatOrArray,
+                    water_density_kg_m3: FloatOrArray = 998.0) -> FloatOrArray:
     """Factor ``1 / sqrt(1 + Gamma rho_w a / (rho_s h))`` that lowers the ring with water on one side.
 
     Lamb (1920), Gamma = 0.6689, derived for the fundamental mode of a clamped
     circle; ``radius_m`` of another outline is its equivalent radius
     sqrt(area / pi) (an approximation, common practice, no source).
+    ``water_density_kg_m3`` defaults to 998 kg/m^3, water near 20 C.
     """
     return 1.0 / np.sqrt(1.0 + LAMB_GAMMA * water_density_kg_m3 * radius_m / surface_density_kg_m2)
 
