@@ -17,8 +17,10 @@ Checks (each a one-line :class:`~popmeter.errors.InputError` naming the file)
     missing file, a directory, empty file (0 bytes), not audio, unreadable
     (no audio could be decoded), zero-length audio, shorter than
     ``min_duration_s``, sample rate outside 8-192 kHz, channel out of range,
-    NaN or infinite samples, all-silent channel (every sample below
-    :data:`SILENCE_LEVEL_FS`).
+    NaN or infinite samples in the channel used, all-silent channel used
+    (every sample below :data:`SILENCE_LEVEL_FS`). Checks that need every
+    sample (NaN/Inf, silence, the true length) are made while streaming: the
+    error comes from the iteration, at the offending block or at the end.
 
 Damaged files are read as far as they can be and the rest is reported, never
 padded with silence:
