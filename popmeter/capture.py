@@ -69,6 +69,14 @@ FLUSH_INTERVAL_S = 0.5
 #: beyond any scheduling hiccup (common practice, no source).
 DEVICE_SILENT_TIMEOUT_S = 2.0
 
+#: Most audio the writer thread writes in one call when it has fallen behind
+#: (s); a full disk then loses at most this much of what was queued.
+WRITE_BATCH_S = 0.25
+
+#: Most audio the analysis thread hands the detector in one call when it has
+#: fallen behind (s); a second bounds the delay of the live view.
+ANALYSIS_BATCH_S = 1.0
+
 #: Peak level at or above which a block counts as clipped (full scale = 1.0).
 CLIP_LEVEL = 0.999
 
@@ -642,20 +650,35 @@ class CaptureSession:
     # -- threads -----------------------------------------------------------------
 
     def _writer_loop(self) -> None:
+        # Blocks waiting in the queue are written together (up to
+        # WRITE_BATCH_S of audio): one write per device block at the real-time
+        # pace, fewer and larger writes when the writer has fallen behind.
+        max_batch = max(1, int(WRITE_BATCH_S * self.sample_rate_hz))
         last_flush = self.clock()
-        while True:
+        done = False
+        while not done:
             try:
-                item = self._queue.get(timeout=0.1)
+                items = [self._queue.get(timeout=0.1)]
             except queue.Empty:
-                item = None
-            if item is _STOP:
-                break
-            if item is not None and not self._write_failed:
-                block, gap = item
+                items = []
+            size = 0
+            while items and items[-1] is not _STOP and size < max_batch:
+                size += items[-1][0].shape[0] + items[-1][1]
                 try:
+                    items.append(self._queue.get_nowait())
+                except queue.Empty:
+                    break
+            if items and items[-1] is _STOP:
+                items.pop()
+                done = True
+            if items and not self._write_failed:
+                parts = []
+                for block, gap in items:
                     if gap:
-                        self._write(np.zeros((gap, self.channels), np.float32))
-                    self._write(block)
+                        parts.append(np.zeros((gap, self.channels), np.float32))
+                    parts.append(block)
+                try:
+                    self._write(parts[0] if len(parts) == 1 else np.concatenate(parts))
                 except OSError as exc:
                     self._write_failed = True
                     self._disk_fault(exc)
@@ -687,27 +710,44 @@ class CaptureSession:
         self.report_fault(msg)
 
     def _analysis_loop(self) -> None:
-        while True:
-            item = self._analysis_queue.get()
-            if item is _STOP:
+        # Blocks waiting in the queue are analysed together (up to
+        # ANALYSIS_BATCH_S of audio): at the real-time pace that is one block
+        # at a time (lowest latency); when the thread falls behind, fewer and
+        # larger calls let it catch up. The detector gives the same clicks
+        # whatever the block size.
+        max_batch = max(1, int(ANALYSIS_BATCH_S * self.sample_rate_hz))
+        done = False
+        while not done:
+            parts = [self._analysis_queue.get()]
+            size = 0 if parts[0] is _STOP else parts[0].shape[0]
+            while parts[-1] is not _STOP and size < max_batch:
                 try:
-                    self._add_clicks(self.detector.flush())
-                except Exception as exc:  # noqa: BLE001
-                    self._analysis_fault(exc)
-                break
+                    nxt = self._analysis_queue.get_nowait()
+                except queue.Empty:
+                    break
+                parts.append(nxt)
+                if nxt is not _STOP:
+                    size += nxt.shape[0]
+            if parts[-1] is _STOP:
+                parts.pop()
+                done = True
             try:
-                self._levels(item)
-                found = self.detector.process(item)
-                with self._lock:
-                    self.frames_analysed += item.shape[0]
-                self._add_clicks(found)
-                self._check_silence()
+                if parts:
+                    x = parts[0] if len(parts) == 1 else np.concatenate(parts)
+                    self._levels(x)
+                    found = self.detector.process(x)
+                    with self._lock:
+                        self.frames_analysed += x.shape[0]
+                    self._add_clicks(found)
+                    self._check_silence()
+                if done:
+                    self._add_clicks(self.detector.flush())
             except Exception as exc:  # noqa: BLE001
                 self._analysis_fault(exc)
                 # keep draining so the writer never blocks; recording continues
-                while self._analysis_queue.get() is not _STOP:
+                while not done and self._analysis_queue.get() is not _STOP:
                     pass
-                break
+                return
 
     def _analysis_fault(self, exc: Exception) -> None:
         with self._lock:

@@ -278,7 +278,7 @@ def test_disk_full_stops_and_keeps_what_was_written():
     s = _session(sink)
     rng = np.random.default_rng(3)
     x = rng.uniform(-0.1, 0.1, (SR, 1)).astype(np.float32)
-    _feed(s, x, rng, wait_analysis=False)
+    _feed(s, x, rng, wait_analysis=True)
     deadline = time.monotonic() + 5
     while not s.stopping and time.monotonic() < deadline:
         time.sleep(0.001)
