@@ -40,9 +40,9 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests"))
 
-from popmeter import live_view  # noqa: E402
-from popmeter.capture import CaptureSession, WavSink  # noqa: E402
-from popmeter.synth import RunScenario, render  # noqa: E402
+from popmeter import live_view
+from popmeter.capture import CaptureSession, WavSink
+from popmeter.synth import RunScenario, render
 
 SR = 48000
 BLOCK = 512
@@ -62,7 +62,7 @@ def throughput(tmp: Path) -> None:
     from rich.console import Console
 
     try:
-        os.sched_setaffinity(0, {sorted(os.sched_getaffinity(0))[0]})
+        os.sched_setaffinity(0, {min(os.sched_getaffinity(0))})
         pinned = "pinned to one core"
     except (AttributeError, OSError):
         pinned = "not pinned (no sched_setaffinity)"
@@ -164,7 +164,7 @@ def sigkill(tmp: Path) -> None:
                 proc.wait()
             finally:
                 player.close()
-            saved, rate = sf.read(out, dtype="float32")
+            saved, _ = sf.read(out, dtype="float32")
             offset, skipped = align(saved, src)
             kept = len(saved) - offset
             exact = np.array_equal(saved[offset:], src[skipped:skipped + kept])
