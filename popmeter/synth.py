@@ -810,7 +810,6 @@ def _truth(s: RunScenario, plan: dict, cycles: list[_Cycle], stall_pairs, clicks
            modes, amps, decays, band, clipped: int, dropped_modes: bool) -> dict:
     fs = s.sample_rate_hz
     starts = np.array([c.time_s for c in cycles])
-    real = [c for c in clicks if c["kind"] == 0] or clicks
     first_click = clicks[0]["time_s"] if clicks else None
     last_click = clicks[-1]["time_s"] if clicks else None
 
@@ -855,7 +854,6 @@ def _truth(s: RunScenario, plan: dict, cycles: list[_Cycle], stall_pairs, clicks
                        "end_s": cycles[b].time_s, "cycle": a,
                        "periods": (cycles[b].time_s - cycles[a].time_s)
                        / cycles[a].period_nominal_s})
-    del real
 
     warnings = []
     if clipped:
@@ -1228,14 +1226,15 @@ missed_pops       [{cycle, time_s}] startup cycles without a click
 phases            [{name (heating/startup/steady/fade/after), start_s, end_s}]
 stalls            [{start_s (last click before the gap), end_s (next click), cycle, periods}]
 steady_rate_hz    median of 1/(cycle-start interval) over steady cycles; null if none
-never_settles, starts_mid_run, ends_mid_run   bool flags of the scenario
+never_settles, starts_mid_run, ends_mid_run, never_starts   bool flags of the scenario
 first_click_s, last_click_s   float s or null
 ring_hz           lowest plate mode used (nominal); ring_modes_hz, ring_mode_amplitudes,
                   ring_mode_decay_s: all modes used
 distractors       [{type, time_s, end_s, level_db}]
 hum_hz, reverb_rt60_s, clipped_samples, warnings
 diaphragm         {thickness_m, stiffness_kpa_per_ml, ...} when a boat profile was used
-profile           the boat profile (raw dict) when one was used
+profile           the boat profile (raw dict, file units) when one was used;
+                  profile_source: its file name or null
 scenario          every RunScenario parameter;  seed: int
 """
 

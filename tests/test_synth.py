@@ -437,3 +437,12 @@ def test_bundled_boat_and_spec_load():
     truth = load_truth(BUNDLE / "clean_run.flac")
     assert truth["profile"]["name"] == boat.name
     assert truth["ring_hz"] == pytest.approx(predict(boat).ring_hz)
+
+
+def test_schema_doc_names_every_truth_key(tmp_path):
+    from popmeter.synth import truth_schema_doc
+
+    truth = load_truth(simulate_to_file(tmp_path / "a.wav", duration_s=5.0, sample_rate_hz=16000))
+    doc = truth_schema_doc()
+    missing = [k for k in truth if k not in doc]
+    assert not missing, missing
