@@ -117,21 +117,29 @@ def test_clicks_only_between_heating_and_after():
         assert a["end_s"] == pytest.approx(b["start_s"])
 
 
-@pytest.mark.parametrize("ctn_db", [30.0, 18.0])
+@pytest.mark.parametrize("ctn_db", [30.0, 12.0])
 def test_click_to_noise_ratio_measured_back(ctn_db):
+    # definition (popmeter.synth docstring): peak of the nominal steady main
+    # click over the RMS of the background noise, both in the click band
     fs = 24000
-    x, truth = render(short(click_to_noise_db=ctn_db, seed=5, heating_s=4.0, duration_s=17.5))
-    x = x[:, 0]
+    s = short(click_to_noise_db=ctn_db, seed=5, heating_s=4.0, duration_s=17.5)
+    x, truth = render(s)
+    clean, _ = render(s.replace(click_to_noise_db=None))  # same seed: the same clicks
     band = tuple(truth["click_band_hz"])
-    y = _brickwall(x, fs, band)
+    y = _brickwall(x[:, 0], fs, band)
+    y0 = _brickwall(clean[:, 0], fs, band)
     noise_rms = np.sqrt(np.mean(y[int(0.5 * fs):int(3.5 * fs)] ** 2))
     steady = _phase(truth, "steady")
-    peaks = [np.max(np.abs(y[c["sample"]:c["sample"] + int(0.003 * fs)]))
-             for c in truth["clicks"]
+    mains = [c["sample"] for c in truth["clicks"]
              if c["kind"] == 0 and steady["start_s"] <= c["time_s"] < steady["end_s"]]
-    measured_db = 20 * math.log10(np.median(peaks) / noise_rms)
-    # noise adds to the peak at low ratios: allow 1 dB (+ a little at 18 dB)
-    assert measured_db == pytest.approx(ctn_db, abs=1.0 if ctn_db >= 25 else 1.5)
+
+    def ratio_db(sig: np.ndarray) -> float:
+        peaks = [np.max(np.abs(sig[n:n + int(0.003 * fs)])) for n in mains]
+        return 20 * math.log10(np.median(peaks) / noise_rms)
+
+    assert ratio_db(y0) == pytest.approx(ctn_db, abs=0.5)
+    if ctn_db >= 25:  # at high ratios the noise riding on each peak hardly matters
+        assert ratio_db(y) == pytest.approx(ctn_db, abs=1.0)
 
 
 def test_ring_modes_follow_clamped_circle_roots():
