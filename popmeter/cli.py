@@ -13,7 +13,7 @@ import sys
 from pathlib import Path
 from typing import Sequence
 
-from popmeter.errors import PopmeterError, UsageError
+from popmeter.errors import ConfigError, PopmeterError, UsageError
 
 EXIT_OK = 0
 EXIT_FAILED_SPEC = 1
@@ -268,7 +268,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except PopmeterError as error:
         if args.debug:
             raise
-        print(f"popmeter {args.command}: error: {error}", file=sys.stderr)
+        if isinstance(error, ConfigError) and len(error.problems) > 1:
+            # one line per problem, so that all of them can be fixed in one go
+            for problem in error.problems:
+                print(f"popmeter {args.command}: error: {error.source}: {problem}", file=sys.stderr)
+        else:
+            print(f"popmeter {args.command}: error: {error}", file=sys.stderr)
         return error.exit_code
     except KeyboardInterrupt:
         if args.debug:
