@@ -454,3 +454,17 @@ def test_schema_doc_names_every_truth_key(tmp_path):
     doc = truth_schema_doc()
     missing = [k for k in truth if k not in doc]
     assert not missing, missing
+
+
+def test_simulate_command_line(tmp_path):
+    from popmeter.cli import main
+
+    out = tmp_path / "sub" / "run.flac"
+    rc = main(["simulate", "--out", str(out), "--duration", "6", "--samplerate", "16000",
+               "--clicks-per-cycle", "2", "--snr", "20", "--distractors", "splash,hum",
+               "--thickness-factor", "0.9", "--seed", "4"])
+    assert rc == 0 and out.exists()
+    truth = load_truth(out)
+    assert truth["clicks_per_cycle"] == 2 and truth["click_to_noise_db"] == 20.0
+    assert truth["diaphragm"]["thickness_factor"] == 0.9 and truth["seed"] == 4
+    assert main(["simulate", "--out", str(tmp_path / "x.wav"), "--distractors", "thunder"]) == 2
