@@ -82,6 +82,10 @@ __all__ = [
 
 _MAD_TO_SIGMA = 1.4826  # MAD of a Gaussian = 0.6745 sigma (Hampel 1974)
 _DB_PER_NEPER = 20.0 / math.log(10.0)  # 8.686 dB per neper of amplitude
+# Hann side lobes fall below -31 dB at once and -60 dB within a few bins
+# (Harris, Proc. IEEE 66, 1978): a bin 40 dB under the frame's top is leakage.
+_LEAK_DB = 40.0
+_ABS_FLOOR_DB = -110.0  # bin level (dB re a full-scale sine) below which nothing is a click
 
 
 @dataclass
@@ -169,6 +173,7 @@ class _Candidate:
     frame: int
     z: float
     band: int
+    strong: bool = True
 
 
 class ClickDetector:
@@ -230,10 +235,12 @@ class ClickDetector:
         band_hz: tuple[float, float] | None = None,
         max_rate_hz: float = 80.0,
         threshold_db: float = 13.0,
+        weak_threshold_db: float = 8.0,
         min_rise_db: float = 6.0,
         highpass_hz: float = 300.0,
         max_attack_s: float = 0.003,
-        min_tonality_db: float = 12.0,
+        min_tonality_db: float = 10.0,
+        min_ring_snr_db: float = 8.0,
         reject: bool = True,
     ) -> None:
         fs = float(sample_rate_hz)
@@ -244,9 +251,11 @@ class ClickDetector:
             raise UsageError(f"max_rate_hz={max_rate_hz}: must be positive")
         self.sample_rate_hz = fs
         self.threshold_db = float(threshold_db)
+        self.weak_threshold_db = min(float(weak_threshold_db), self.threshold_db)
         self.min_rise_db = float(min_rise_db)
         self.max_attack_s = float(max_attack_s)
         self.min_tonality_db = float(min_tonality_db)
+        self.min_ring_snr_db = float(min_ring_snr_db)
         self.reject = bool(reject)
 
         # decimated analysis stream
@@ -260,9 +269,12 @@ class ClickDetector:
         scale = (float(np.sum(self._win)) / 2.0) ** 2  # full-scale sine -> 0 dB
         self._scale = 1.0 / scale
         self._lag = 3
-        self._aa_sos = (signal.butter(4, 0.4 * fs_d, "lowpass", fs=fs, output="sos")
-                        if self._q > 1 else None)
-        self._aa_zi = np.zeros((2, 2)) if self._q > 1 else None
+        # anti-alias: triangular FIR (boxcar * boxcar, length 2q - 1), zero at
+        # the decimated Nyquist's images; cheap, and the watched band stops at
+        # 0.42 of the decimated rate, where it still passes 4 dB down
+        box = np.ones(self._q)
+        self._aa = (np.convolve(box, box) / self._q ** 2).astype(np.float64)
+        self._aa_hist = np.zeros(len(self._aa) - 1)
 
         # watched frequency range: one STFT bin per detection channel
         freqs = np.fft.rfftfreq(self._n_fft, 1.0 / fs_d)
@@ -284,23 +296,31 @@ class ClickDetector:
         self._bin_hz = freqs[b0:b1]
         self._df = fs_d / self._n_fft
         nb = b1 - b0
-        self._k_mad = 2.5
+        self._k_mad = 1.6
 
         # refinement stream (high-passed, full rate)
         hp = min(float(highpass_hz), 0.25 * fs)
         if band_hz is not None:
             hp = min(hp, 0.5 * float(band_hz[0]))
         self._hp_sos = signal.butter(2, hp, "highpass", fs=fs, output="sos")
-        self._hp_zi = np.zeros((1, 2))
+        self._hp_warm = int(round(10.0 / (2 * math.pi * hp) * fs))  # ten time constants
 
         # timing constants (input samples)
         self._refr = max(1, int(round(fs / max_rate_hz / self.hop)))  # frames
         self._pre = int(round(0.008 * fs))
         self._post = int(round(0.001 * fs))
         self._tail = int(round(0.024 * fs))
-        self._nfft_ring = int(2 ** math.ceil(math.log2(4 * self._tail)))
+        self._nfft_ring = int(2 ** math.ceil(math.log2(1.5 * self._tail)))
+        self._tapers: dict[int, np.ndarray] = {}
         self._frame_span = self._n_fft * self._q
         self.max_latency_s = (self._refr * self.hop + self._frame_span + self._tail) / fs
+        f_ring = np.arange(self._nfft_ring // 2 + 1) * fs / self._nfft_ring
+        self._ring_bins = (int(np.searchsorted(f_ring, 0.8 * self._hp_corner())),
+                           int(np.searchsorted(f_ring, min(12000.0, 0.45 * fs))))
+        self._learn_gap = max(1, int(math.ceil((self._tail + self._post) / self.hop)) + 2)
+        self._checkpoint = int(round(0.5 / 0.002))  # frames between learning updates
+        self._next_cp = self._checkpoint
+        self._typ_current: np.ndarray | None = None
 
         # statistics schedule (frames)
         self._stat_win = int(round(2.0 / 0.002))
@@ -316,7 +336,6 @@ class ClickDetector:
         self.rejected = 0
         self.rejected_times_s: list[float] = []
         self._x = np.zeros(0, dtype=np.float64)  # raw, from _x0
-        self._y = np.zeros(0, dtype=np.float64)  # high-passed, from _x0
         self._x0 = 0
         self._d = np.zeros(0, dtype=np.float32)  # decimated, from _d0
         self._d0 = 0
@@ -330,6 +349,13 @@ class ClickDetector:
         self._z0 = 0
         self._decided = 0  # frames decided by the peak picker
         self._pending: list[_Candidate] = []
+        self._out: list[Click] = []
+        self._over_hist = np.zeros((0, nb))
+        self._strong_hist: list[tuple[int, int]] = []
+        self._typ_key: tuple[int, int] | None = None
+        self._typ_cache: np.ndarray | None = None
+        self._last_onset = -(10 ** 12)
+        self._debug: list[dict] | None = None
         self._bin_votes = np.zeros(nb, dtype=np.int64)
         self._flushed = False
 
@@ -372,14 +398,20 @@ class ClickDetector:
         self.clipped_samples += int(np.count_nonzero(np.abs(x) >= 0.9999))
         start = self.samples_seen
         self.samples_seen += x.size
-        y, self._hp_zi = signal.sosfilt(self._hp_sos, x, zi=self._hp_zi)
         self._x = np.concatenate([self._x, x])
-        self._y = np.concatenate([self._y, y])
-        # decimate
+        # decimate: FIR with carried history, keep samples whose index is a multiple of q
         if self._q > 1:
-            lp, self._aa_zi = signal.sosfilt(self._aa_sos, x, zi=self._aa_zi)
-            first = (-start) % self._q
-            dec = lp[first::self._q].astype(np.float32)
+            q = self._q
+            ext = np.concatenate([self._aa_hist, x])
+            self._aa_hist = ext[len(ext) - (len(self._aa) - 1):]
+            first = (-start) % q  # offset in x of the first kept sample
+            idx = np.arange(first, x.size, q)
+            # output sample at input index i: sum_j h[j] x[i - j] (causal FIR)
+            taps = len(self._aa)
+            acc = np.zeros(idx.size)
+            for j in range(taps):
+                acc += self._aa[j] * ext[idx + (taps - 1) - j]
+            dec = acc.astype(np.float32)
         else:
             dec = x.astype(np.float32)
         self._d = np.concatenate([self._d, dec])
@@ -434,7 +466,8 @@ class ClickDetector:
             self._L_tail = allv[-(lag + 1):]
             self._frames = avail
             self._lev_hist = np.vstack([self._lev_hist, levels])
-            z, zb = self._zscores(f0, rise, levels)
+            z, zb, ov = self._zscores(f0, rise, levels)
+            self._over_hist = np.vstack([self._over_hist, ov])
             self._z_hist = np.concatenate([self._z_hist, z])
             self._zb_hist = np.concatenate([self._zb_hist, zb])
             # trim rise history
@@ -451,10 +484,11 @@ class ClickDetector:
         self._pick(final=final)
 
     def _zscores(self, f0: int, rise: np.ndarray, levels: np.ndarray
-                 ) -> tuple[np.ndarray, np.ndarray]:
+                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         nf = rise.shape[0]
         z = np.zeros(nf)
         zb = np.zeros(nf, dtype=np.int64)
+        ov = np.zeros_like(levels)
         t = f0
         end = f0 + nf
         while t < end:
@@ -464,14 +498,20 @@ class ClickDetector:
             seg_end = min(end, nxt)
             if self._have_stats:
                 r = rise[t - f0:seg_end - f0]
-                over = levels[t - f0:seg_end - f0] - self._med
-                zz = np.where((r >= self.min_rise_db) & (over >= self._k_mad * self._sig),
-                              over, 0.0)
+                lev = levels[t - f0:seg_end - f0]
+                over = lev - self._med
+                # gates: a real rise, above the bin's robust spread, and not a
+                # window side-lobe of a far stronger bin (in near-silence the
+                # floor is so low that leakage would pass)
+                top = lev.max(axis=1, keepdims=True)
+                zz = np.where((r >= self.min_rise_db) & (over >= self._k_mad * self._sig)
+                              & (lev >= top - _LEAK_DB) & (lev >= _ABS_FLOOR_DB), over, 0.0)
+                ov[t - f0:seg_end - f0] = zz
                 best = np.argmax(zz, axis=1)
                 z[t - f0:seg_end - f0] = zz[np.arange(zz.shape[0]), best]
                 zb[t - f0:seg_end - f0] = best
             t = seg_end
-        return z, zb
+        return z, zb, ov
 
     def _is_update(self, t: int) -> bool:
         if t <= 0:
@@ -489,8 +529,10 @@ class ClickDetector:
         lo = max(0, t - self._stat_win)
         rows = self._lev_hist[lo - self._rise0:t - self._rise0]
         rows = rows[::4] if rows.shape[0] >= 200 else rows
-        med = np.median(rows, axis=0)
-        mad = np.median(np.abs(rows - med), axis=0)
+        rows = np.ascontiguousarray(rows.T, dtype=np.float32)  # bins x frames
+        h = rows.shape[1] // 2  # the (upper) median as an order statistic: fast partition
+        med = np.partition(rows, h, axis=1)[:, h]
+        mad = np.partition(np.abs(rows - med[:, None]), h, axis=1)[:, h]
         self._med = med
         self._sig = np.maximum(_MAD_TO_SIGMA * mad, 0.5)
         self._have_stats = True
@@ -502,26 +544,86 @@ class ClickDetector:
             return
         z = self._z_hist
         z0 = self._z0
-        for t in range(self._decided, upto):
+        over = self._over_hist
+        thr = self.threshold_db
+        weak = self.weak_threshold_db
+        zz = z[self._decided - z0:upto - z0]
+        left = z[max(0, self._decided - z0 - 1):upto - z0 - 1]
+        if left.size < zz.size:
+            left = np.concatenate([[-1.0], left])
+        right = z[self._decided - z0 + 1:upto - z0 + 1]
+        if right.size < zz.size:
+            right = np.concatenate([right, [-1.0]])
+        # candidates are local maxima of the detection function (over all bins)
+        hits = np.nonzero((zz >= weak) & (zz >= left) & (zz >= right))[0] + self._decided
+        for t in hits.tolist():
+            # learning checkpoint: every candidate older than (checkpoint - gap)
+            # is measured first, so that what is learnt from it is the same
+            # whatever the block size
+            if t >= self._next_cp:
+                cp = (t // self._checkpoint) * self._checkpoint
+                self._measure_upto(cp - self._learn_gap)
+                self._typ_current = self._typical_bins(cp - self._learn_gap)
+                self._next_cp = cp + self._checkpoint
             zt = z[t - z0]
-            if zt < self.threshold_db:
-                continue
             a = max(z0, t - r)
             b = min(self._frames, t + r + 1)
-            if np.any(z[a - z0:t - z0] >= zt) or np.any(z[t + 1 - z0:b - z0] > zt):
+            if zt >= thr:
+                if np.any(z[a - z0:t - z0] >= zt) or np.any(z[t + 1 - z0:b - z0] > zt):
+                    continue
+                self._pending.append(_Candidate(t, float(zt), int(self._zb_hist[t - z0]), True))
                 continue
-            self._pending.append(_Candidate(t, float(zt), int(self._zb_hist[t - z0])))
+            typ = self._typ_current
+            if typ is None or np.any(z[a - z0:b - z0] >= thr):
+                continue
+            win = over[a - z0:b - z0][:, typ]
+            wmax = win.max(axis=1)
+            zt2 = wmax[t - a]
+            if zt2 < weak or np.any(wmax[:t - a] >= zt2) or np.any(wmax[t - a + 1:] > zt2):
+                continue
+            band = int(typ[int(np.argmax(win[t - a]))])
+            self._pending.append(_Candidate(t, float(zt2), band, False))
         self._decided = upto
         keep_from = max(0, self._decided - r - 1)
         if keep_from > z0:
             self._z_hist = self._z_hist[keep_from - z0:]
             self._zb_hist = self._zb_hist[keep_from - z0:]
+            self._over_hist = self._over_hist[keep_from - z0:]
             self._z0 = keep_from
+
+    def _typical_bins(self, limit_frame: int) -> np.ndarray | None:
+        """Bins where the strong clicks so far (onset frame <= limit) rang."""
+        hist = self._strong_hist
+        n = len(hist)
+        while n and hist[n - 1][0] >= limit_frame:
+            n -= 1
+        if n < 4:
+            return None
+        key = (n, hist[n - 1][0])
+        if self._typ_key == key:
+            return self._typ_cache
+        bins = np.array([hb for _, hb in hist[max(0, n - 64):n]], dtype=np.int64)
+        counts = np.bincount(bins, minlength=len(self._bin_hz))
+        need = max(2, int(math.ceil(0.15 * bins.size)))
+        sel = counts >= need
+        if not sel.any():
+            sel = counts == counts.max()
+        sel = sel | np.roll(sel, 1) | np.roll(sel, -1)
+        typ = np.nonzero(sel)[0]
+        self._typ_key = key
+        self._typ_cache = typ
+        return typ
+
+    def _measure_upto(self, limit_frame: int) -> None:
+        ready = []
+        while self._pending and self._pending[0].frame < limit_frame:
+            ready.append(self._pending.pop(0))
+        if ready:
+            self._out.extend(self._measure(ready))
 
     # -------------------------------------------------------------- finalising
 
     def _finalise(self, *, final: bool) -> list[Click]:
-        out: list[Click] = []
         total = self.samples_seen
         ready: list[_Candidate] = []
         while self._pending:
@@ -531,142 +633,196 @@ class ClickDetector:
                 break
             ready.append(self._pending.pop(0))
         if ready:
-            out = self._measure(ready)
+            self._out.extend(self._measure(ready))
+        out, self._out = self._out, []
         # trim sample buffers
         if self._pending:
             first = self._pending[0].frame * self.hop - self._pre - 2 * self.hop - self._frame_span
         else:
             first = self._decided * self.hop - self._pre - 2 * self.hop - self._frame_span
         first = min(first, total - self._pre - self._frame_span)
+        first -= self._hp_warm + self._nfft_ring
         if first > self._x0:
             cut = first - self._x0
             self._x = self._x[cut:]
-            self._y = self._y[cut:]
             self._x0 = first
         return out
 
+    def _window(self, starts: np.ndarray, length: int) -> np.ndarray:
+        """Rows x[start:start + length] of the kept raw samples, zero outside."""
+        x, x0 = self._x, self._x0
+        idx = starts[:, None] - x0 + np.arange(length)[None, :]
+        ok = (idx >= 0) & (idx < x.size)
+        out = np.zeros(idx.shape)
+        out[ok] = x[idx[ok]]
+        return out
+
     def _measure(self, cands: list[_Candidate]) -> list[Click]:
+        """Onset, features and the click-or-not decision of candidates, in one batch."""
         fs = self.sample_rate_hz
-        y, x, x0 = self._y, self._x, self._x0
-        n_end = x0 + len(y)
+        k = len(cands)
+        frames = np.array([c.frame for c in cands], dtype=np.int64)
+        # one high-passed window per candidate, wide enough for every step:
+        # warm-up | pre-onset noise | search region | ring tail
+        search = self._frame_span + 3 * self.hop
+        lead = self._hp_warm + self._tail + self._pre + 2 * self.hop
+        length = lead + search + self._tail + self._post
+        w0 = frames * self.hop - lead
+        y = signal.sosfilt(self._hp_sos, self._window(w0, length), axis=1)
+        # coarse: peak of |y| over the frame holding the rise
+        s0 = lead
+        p = s0 + np.argmax(np.abs(y[:, s0:s0 + search]), axis=1)
+        # fine: AIC change point (Maeda 1985) on y[p - pre, p + post)
+        n = self._pre + self._post
+        aw = y[np.arange(k)[:, None], (p - self._pre)[:, None] + np.arange(n)[None, :]]
+        c1 = np.cumsum(aw, axis=1)
+        c2 = np.cumsum(aw * aw, axis=1)
+        kk = np.arange(1, n)[None, :]
+        s1, q1 = c1[:, :-1], c2[:, :-1]
+        s2, q2 = c1[:, -1:] - s1, c2[:, -1:] - q1
+        var1 = np.maximum(q1 / kk - (s1 / kk) ** 2, 1e-30)
+        var2 = np.maximum(q2 / (n - kk) - (s2 / (n - kk)) ** 2, 1e-30)
+        aic = kk * np.log(var1) + (n - kk - 1) * np.log(var2)
+        j = 2 + np.argmin(aic[:, 1:n - 4], axis=1)  # split after j samples
+        on_local = p - self._pre + j  # index in y rows of the onset
+        onsets = w0 + on_local
+        feats = self._features(y, on_local, onsets)
         clicks: list[Click] = []
-        for c in cands:
-            # coarse: peak of |y| near the frame holding the rise
-            a = max(x0, c.frame * self.hop - 2 * self.hop)
-            b = min(n_end, c.frame * self.hop + self._frame_span + self.hop)
-            if b - a < 4:
-                continue
-            p = a + int(np.argmax(np.abs(y[a - x0:b - x0])))
-            onset = self._aic_onset(y, x0, p)
-            if onset is None:
-                continue
-            feats = self._features(x, y, x0, onset)
+        for i, c in enumerate(cands):
+            onset = int(onsets[i])
+            f = {key: val[i] for key, val in feats.items()}
+            if onset - self._last_onset < self._post:
+                continue  # the same click found twice
+            if self._debug is not None:
+                self._debug.append({"time_s": onset / fs, "strong": c.strong, "z": c.z, **f})
+            ring = f["ring_hz"]
             ok = True
             if self.reject:
-                if feats["attack_s"] > self.max_attack_s:
+                if f["attack_s"] > self.max_attack_s:
                     ok = False
-                elif feats["tonality_db"] < self.min_tonality_db:
+                elif f["tonality_db"] < self.min_tonality_db:
                     ok = False
+                elif f["ring_snr_db"] < self.min_ring_snr_db:
+                    ok = False
+                elif not c.strong:
+                    typ = self._typ_current
+                    if ring is None or typ is None:
+                        ok = False
+                    else:
+                        lo = self._bin_hz[typ[0]] - self._df
+                        hi = self._bin_hz[typ[-1]] + self._df
+                        ok = lo <= ring <= hi
             if not ok:
                 self.rejected += 1
                 self.rejected_times_s.append(onset / fs)
                 continue
-            if self._forced is None:
-                self._bin_votes[c.band] += 1
-            clicks.append(Click(time_s=onset / fs, sample=int(onset),
-                                level_dbfs=feats["level_dbfs"], strength=round(c.z, 3),
-                                ring_hz=feats["ring_hz"], decay_s=feats["decay_s"]))
-        # the same click found twice (two candidates refining to one onset)
-        uniq: list[Click] = []
-        for ck in clicks:
-            if uniq and ck.sample - uniq[-1].sample < self._post:
-                continue
-            uniq.append(ck)
-        return uniq
+            self._last_onset = onset
+            self._bin_votes[c.band] += 1
+            if c.strong:
+                self._strong_hist.append((c.frame, c.band))
+                if len(self._strong_hist) > 256:
+                    del self._strong_hist[:128]
+            clicks.append(Click(time_s=onset / fs, sample=onset,
+                                level_dbfs=round(float(f["level_dbfs"]), 3),
+                                strength=round(c.z, 3), ring_hz=ring, decay_s=f["decay_s"]))
+        return clicks
 
-    def _aic_onset(self, y: np.ndarray, x0: int, p: int) -> int | None:
-        """AIC change point on y[p - pre, p + post] (Maeda 1985)."""
-        a = max(x0, p - self._pre)
-        b = min(x0 + len(y), p + self._post)
-        w = y[a - x0:b - x0]
-        n = w.size
-        if n < 8:
-            return None
-        c1 = np.cumsum(w)
-        c2 = np.cumsum(w * w)
-        k = np.arange(1, n)  # split after k samples: [0,k) and [k,n)
-        s1, q1 = c1[k - 1], c2[k - 1]
-        s2, q2 = c1[-1] - s1, c2[-1] - q1
-        var1 = q1 / k - (s1 / k) ** 2
-        var2 = q2 / (n - k) - (s2 / (n - k)) ** 2
-        tiny = 1e-30
-        aic = k * np.log(np.maximum(var1, tiny)) + (n - k - 1) * np.log(np.maximum(var2, tiny))
-        lo, hi = 2, n - 3
-        if hi <= lo:
-            return None
-        j = lo + int(np.argmin(aic[lo - 1:hi - 1]))
-        return a + j
-
-    def _features(self, x: np.ndarray, y: np.ndarray, x0: int, onset: int) -> dict:
+    def _features(self, y: np.ndarray, on: np.ndarray, onsets: np.ndarray) -> dict:
+        """Per-click features from the high-passed rows ``y`` (onset at column ``on``)."""
         fs = self.sample_rate_hz
-        n_end = x0 + len(y)
-        i = onset - x0
-        seg5 = x[i:min(len(x), i + int(0.005 * fs))]
-        peak = float(np.max(np.abs(seg5))) if seg5.size else 0.0
-        level = 20 * math.log10(max(peak, 1e-10))
-        tail_end = min(n_end, onset + self._tail)
-        tail = y[i:tail_end - x0]
-        pre = y[max(0, i - self._pre):max(0, i - int(0.0005 * fs))]
-        noise_rms = float(np.sqrt(np.mean(pre * pre))) if pre.size else 0.0
-        # attack: envelope in 0.5 ms blocks over the first 10 ms
-        blk = max(1, int(round(0.0005 * fs)))
-        first = y[i:min(len(y), i + 20 * blk)]
-        nblk = first.size // blk
-        attack = 1.0
-        if nblk >= 2:
-            env = np.sqrt(np.mean(first[:nblk * blk].reshape(nblk, blk) ** 2, axis=1))
-            attack = float(np.argmax(env) * blk / fs)
-        # ring frequency: spectrum of the tail, right half-Hann taper
-        ring = None
-        tonality = 0.0
-        if tail.size >= int(0.004 * fs):
-            m = tail.size
-            taper = np.ones(m)
+        k = y.shape[0]
+        rows = np.arange(k)[:, None]
+        m = self._tail
+        gap = int(0.0005 * fs)
+        # level: peak of the raw signal within 5 ms of the onset
+        raw = self._window(onsets, int(0.005 * fs))
+        level = 20 * np.log10(np.maximum(np.max(np.abs(raw), axis=1), 1e-10))
+        tail = y[rows, on[:, None] + np.arange(m)[None, :]]
+        pre = y[rows, (on - gap - m)[:, None] + np.arange(m)[None, :]]
+        taper = self._taper(m)
+        spec = sp_fft.rfft(tail * taper, n=self._nfft_ring, axis=1)
+        power = spec.real ** 2 + spec.imag ** 2
+        pspec = sp_fft.rfft(pre * taper[::-1], n=self._nfft_ring, axis=1)
+        ppow = pspec.real ** 2 + pspec.imag ** 2
+        lo_b, hi_b = self._ring_bins
+        band = power[:, lo_b:hi_b]
+        nbb = band.shape[1]
+        kb = np.argmax(band, axis=1)
+        r_ = np.arange(k)
+        db = 10 * np.log10(band[r_[:, None], np.clip(kb[:, None] + np.arange(-1, 2), 0, nbb - 1)]
+                           + 1e-40)
+        # tonality: peak over the median of the neighbourhood (+-25 % in frequency)
+        half = max(4, int(0.25 * (lo_b + int(np.median(kb))))) if k else 4
+        nbh = np.clip(kb[:, None] + np.arange(-half, half + 1)[None, :], 0, nbb - 1)
+        local = band[r_[:, None], nbh]
+        medp = np.partition(local, half, axis=1)[:, half]
+        tonality = db[:, 1] - 10 * np.log10(medp + 1e-40)
+        # ring-to-noise: the same bins before the onset
+        kk = lo_b + kb
+        win = kk[:, None] + np.arange(-3, 4)[None, :]
+        ring_snr = 10 * np.log10((power[r_[:, None], win].sum(axis=1) + 1e-40)
+                                 / (ppow[r_[:, None], win].sum(axis=1) + 1e-40))
+        # quadratic interpolation of the log magnitude (Smith & Serra 1987)
+        al, be, ga = db[:, 0], db[:, 1], db[:, 2]
+        den = al - 2 * be + ga
+        inner = (kb > 0) & (kb < nbb - 1)
+        delta = np.where(inner & (den < 0), 0.5 * (al - ga) / np.where(den < 0, den, -1.0), 0.0)
+        ring = np.where(inner, (kk + delta) * fs / self._nfft_ring, np.nan)
+        # attack and decay on the ring's own envelope: complex demodulation at
+        # the ring frequency averaged over short blocks (a narrow-band
+        # envelope, far less noisy than the broadband one)
+        attack = np.ones(k)
+        decay: list[float | None] = [None] * k
+        have = np.isfinite(ring)
+        if have.any():
+            blk = max(1, int(round(0.0005 * fs)))
+            nab = 20
+            nt = np.arange(max(nab * blk, m))
+            ph = np.exp(np.outer(-2j * math.pi * np.where(have, ring, 0.0) / fs, nt))
+            first = y[rows, on[:, None] + np.arange(nab * blk)[None, :]]
+            env = np.abs((first * ph[:, :nab * blk]).reshape(k, nab, blk).mean(axis=2))
+            attack = np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1) * blk / fs
+            blk2 = 2 * blk
+            nb = m // blk2
+            env_t = np.abs((tail[:, :nb * blk2] * ph[:, :nb * blk2]).reshape(k, nb, blk2)
+                           .mean(axis=2))
+            npb = self._pre // blk2
+            pre_d = y[rows, (on - gap - npb * blk2)[:, None] + np.arange(npb * blk2)[None, :]]
+            env_p = np.abs((pre_d * ph[:, :npb * blk2]).reshape(k, npb, blk2).mean(axis=2))
+            env_db = 20 * np.log10(env_t + 1e-12)
+            floor_db = 10 * np.log10(np.mean(env_p ** 2, axis=1) + 1e-24) + 6.0
+            # straight line through the tail's level in dB, from its peak block
+            # to the first block under the noise floor + 6 dB (least squares)
+            j = np.arange(nb)[None, :]
+            k0 = np.argmax(env_db, axis=1)[:, None]
+            below = (env_db < floor_db[:, None]) & (j >= k0)
+            stop = np.where(below.any(axis=1), np.argmax(below, axis=1), nb)[:, None]
+            use = (j >= k0) & (j < stop)
+            cnt = use.sum(axis=1)
+            tt = j * (blk2 / fs)
+            mt = (tt * use).sum(axis=1) / np.maximum(cnt, 1)
+            my = (env_db * use).sum(axis=1) / np.maximum(cnt, 1)
+            dt = (tt - mt[:, None]) * use
+            sxx = (dt * dt).sum(axis=1)
+            sxy = (dt * (env_db - my[:, None])).sum(axis=1)
+            slope = np.where(sxx > 0, sxy / np.where(sxx > 0, sxx, 1.0), 0.0)
+            for i in np.nonzero(have & (cnt >= 3) & (slope < 0))[0]:
+                decay[i] = float(-_DB_PER_NEPER / slope[i])
+        return {"level_dbfs": level, "ring_hz": [float(r) if np.isfinite(r) else None
+                                                 for r in ring],
+                "decay_s": decay, "attack_s": attack, "tonality_db": tonality,
+                "ring_snr_db": ring_snr}
+
+    def _taper(self, m: int) -> np.ndarray:
+        """Flat, then the right half of a Hann window over the last half (cached)."""
+        t = self._tapers.get(m)
+        if t is None:
+            t = np.ones(m)
             ht = m // 2
-            taper[m - ht:] = np.hanning(2 * ht)[ht:]
-            spec = np.abs(sp_fft.rfft(tail * taper, n=self._nfft_ring))
-            f = np.arange(spec.size) * fs / self._nfft_ring
-            lo_b = int(np.searchsorted(f, 0.8 * self._hp_corner()))
-            hi_b = int(np.searchsorted(f, min(12000.0, 0.45 * fs)))
-            band = spec[lo_b:hi_b]
-            if band.size >= 5:
-                k = int(np.argmax(band))
-                mag_db = 20 * np.log10(band + 1e-20)
-                tonality = float(mag_db[k] - np.median(mag_db))
-                if 0 < k < band.size - 1:
-                    al, be, ga = mag_db[k - 1], mag_db[k], mag_db[k + 1]
-                    den = al - 2 * be + ga
-                    delta = 0.5 * (al - ga) / den if den < 0 else 0.0
-                    ring = float((lo_b + k + delta) * fs / self._nfft_ring)
-        # decay: 1 ms blocks of the tail, straight line in dB from the peak block
-        decay = None
-        blk = max(1, int(round(0.001 * fs)))
-        nb = tail.size // blk
-        if nb >= 4:
-            env = np.sqrt(np.mean(tail[:nb * blk].reshape(nb, blk) ** 2, axis=1))
-            env_db = 20 * np.log10(env + 1e-12)
-            floor_db = 20 * math.log10(noise_rms + 1e-12) + 6.0
-            k0 = int(np.argmax(env_db))
-            sel = env_db[k0:]
-            below = np.nonzero(sel < floor_db)[0]
-            stop = int(below[0]) if below.size else sel.size
-            if stop >= 3:
-                tt = np.arange(stop) * blk / fs
-                slope = np.polyfit(tt, sel[:stop], 1)[0]
-                if slope < 0:
-                    decay = float(-_DB_PER_NEPER / slope)
-        return {"level_dbfs": round(level, 3), "ring_hz": ring, "decay_s": decay,
-                "attack_s": attack, "tonality_db": tonality}
+            if ht:
+                t[m - ht:] = np.hanning(2 * ht)[ht:]
+            self._tapers[m] = t
+        return t
 
     def _hp_corner(self) -> float:
         return float(min(300.0, 0.25 * self.sample_rate_hz)) if self._forced is None else \

@@ -1,0 +1,219 @@
+"""Tests of popmeter.detection: the streaming click detector.
+
+Outside references used here:
+
+* ``mir_eval.onset.f_measure`` (Raffel et al., ISMIR 2014): the standard onset
+  evaluation, +-5 ms window as in issue 3.
+* Exact analytic signals: a decaying sinusoid ``A exp(-t/tau) sin(2 pi f t)``
+  has, by construction, ring frequency ``f``, 1/e decay time ``tau`` and onset
+  at its first sample.
+* ``scipy.signal.periodogram`` as an independent spectral-peak estimate.
+"""
+
+from __future__ import annotations
+
+import math
+
+import mir_eval
+import numpy as np
+import pytest
+from scipy import signal
+
+from popmeter.detection import (
+    Click,
+    ClickDetector,
+    assign_kinds,
+    detect_clicks,
+    detect_clicks_in_blocks,
+)
+
+FS = 48000
+
+
+def pink_noise(n: int, rms: float, rng: np.random.Generator) -> np.ndarray:
+    """Pink (1/f power) noise by spectral shaping, scaled to ``rms``."""
+    spec = rng.standard_normal(n // 2 + 1) + 1j * rng.standard_normal(n // 2 + 1)
+    f = np.fft.rfftfreq(n, 1 / FS)
+    spec[1:] /= np.sqrt(f[1:])
+    spec[0] = 0
+    x = np.fft.irfft(spec, n=n)
+    return x * rms / np.sqrt(np.mean(x**2))
+
+
+def ring(n: int, f_hz: float, tau_s: float, amp: float = 1.0) -> np.ndarray:
+    t = np.arange(1, n + 1) / FS  # non-zero from the first sample, as the generator does
+    return amp * np.exp(-t / tau_s) * np.sin(2 * np.pi * f_hz * t)
+
+
+def own_clicks(duration_s: float = 6.0, *, rate_hz: float = 11.0, f_hz: float = 1500.0,
+               tau_s: float = 0.008, amp: float = 0.3, noise_rms: float = 0.003,
+               seed: int = 0, jitter: float = 0.02) -> tuple[np.ndarray, np.ndarray]:
+    """Our own small test signal: decaying sinusoids on pink noise."""
+    rng = np.random.default_rng(seed)
+    n = int(duration_s * FS)
+    x = pink_noise(n, noise_rms, rng) if noise_rms else np.zeros(n)
+    onsets = []
+    t = 0.3
+    while t < duration_s - 0.1:
+        n0 = int(round(t * FS))
+        m = min(int(0.06 * FS), n - n0)
+        x[n0:n0 + m] += ring(m, f_hz * (1 + 0.002 * rng.standard_normal()), tau_s, amp)[:m]
+        onsets.append(n0)
+        t += (1 + jitter * rng.standard_normal()) / rate_hz
+    return x.astype(np.float32), np.array(onsets)
+
+
+# ---------------------------------------------------------------- own signals
+
+
+def test_decaying_sinusoids_found_to_the_sample():
+    x, onsets = own_clicks()
+    res = detect_clicks(x, FS)
+    est = np.array([c.sample for c in res.clicks])
+    f, p, r = mir_eval.onset.f_measure(onsets / FS, est / FS, window=0.005)  # mir_eval
+    assert f == 1.0
+    err = np.abs(est - onsets)
+    assert np.median(err) <= 2  # samples (0.04 ms)
+    assert err.max() <= 24  # 0.5 ms
+
+
+def test_ring_and_decay_match_the_analytic_click():
+    # exact by construction: f = 1500 Hz, tau = 8 ms
+    x, _ = own_clicks(f_hz=1500.0, tau_s=0.008)
+    res = detect_clicks(x, FS)
+    rings = np.array([c.ring_hz for c in res.clicks])
+    decays = np.array([c.decay_s for c in res.clicks])
+    assert np.median(np.abs(rings / 1500.0 - 1)) < 0.005
+    assert abs(np.median(decays) / 0.008 - 1) < 0.15
+    assert res.ring_hz == pytest.approx(1500.0, rel=0.005)
+    # independent check of the spectral peak with scipy.signal.periodogram
+    seg = x[int(0.3 * FS):int(0.3 * FS) + int(0.024 * FS)].astype(float)
+    f, pxx = signal.periodogram(seg, FS, nfft=1 << 16)
+    assert res.clicks[0].ring_hz == pytest.approx(f[np.argmax(pxx)], rel=0.01)
+
+
+def test_level_dbfs_is_the_peak_level():
+    x, _ = own_clicks(amp=0.3, noise_rms=0.0)
+    res = detect_clicks(x, FS)
+    peak = float(np.max(np.abs(ring(2000, 1500.0, 0.008, 0.3))))
+    assert np.median([c.level_dbfs for c in res.clicks]) == pytest.approx(
+        20 * math.log10(peak), abs=0.3)
+
+
+@pytest.mark.parametrize("block", [37, 512, 4096, 65536])
+def test_same_clicks_whatever_the_block_size(block):
+    x, _ = own_clicks(duration_s=5.0, noise_rms=0.01, seed=3)
+    whole = detect_clicks(x, FS)
+    blocks = [x[i:i + block] for i in range(0, len(x), block)]
+    streamed = detect_clicks_in_blocks(blocks, FS)
+    assert [c.sample for c in streamed.clicks] == [c.sample for c in whole.clicks]
+    for a, b in zip(streamed.clicks, whole.clicks):
+        assert a.level_dbfs == pytest.approx(b.level_dbfs, abs=1e-6)
+        assert a.ring_hz == pytest.approx(b.ring_hz, rel=1e-6)
+        assert a.strength == pytest.approx(b.strength, abs=1e-3)
+    assert streamed.rejected == whole.rejected
+
+
+def test_live_latency_and_bounded_memory():
+    x, onsets = own_clicks(duration_s=8.0, noise_rms=0.005)
+    det = ClickDetector(FS)
+    block = 1024
+    worst = 0.0
+    biggest = 0
+    for i in range(0, len(x), block):
+        got = det.process(x[i:i + block])
+        end = i + len(x[i:i + block])
+        for c in got:
+            worst = max(worst, (end - c.sample) / FS)
+        biggest = max(biggest, det._x.size, det._d.size, det._lev_hist.shape[0] * 4)
+    assert det.max_latency_s <= 0.05
+    assert worst <= det.max_latency_s + block / FS
+    assert biggest < FS  # well under a second of samples kept
+    assert det.samples_seen == len(x)
+
+
+def test_forced_band_is_reported_and_used():
+    x, onsets = own_clicks()
+    res = detect_clicks(x, FS, band_hz=(1000.0, 2500.0))
+    assert res.band_hz == (1000.0, 2500.0)
+    assert len(res.clicks) == len(onsets)
+
+
+def test_found_band_holds_the_ring():
+    x, _ = own_clicks(f_hz=2200.0)
+    res = detect_clicks(x, FS)
+    assert res.band_hz[0] <= 2200.0 <= res.band_hz[1]
+
+
+# ---------------------------------------------------------------- bad input
+
+
+def test_silence_gives_no_clicks_and_a_warning():
+    res = detect_clicks(np.zeros(3 * FS, dtype=np.float32), FS)
+    assert res.clicks == [] and res.ring_hz is None
+    assert any("no clicks" in w for w in res.warnings)
+
+
+def test_noise_alone_gives_no_clicks():
+    x = pink_noise(10 * FS, 0.05, np.random.default_rng(7)).astype(np.float32)
+    res = detect_clicks(x, FS)
+    assert len(res.clicks) == 0
+    assert any("no clicks" in w for w in res.warnings)
+
+
+def test_empty_input_is_not_an_error():
+    res = detect_clicks(np.zeros(0, dtype=np.float32), FS)
+    assert res.clicks == [] and res.warnings
+
+
+def test_clipped_recording_keeps_its_clicks_with_a_warning():
+    x, onsets = own_clicks(amp=3.0, noise_rms=0.003)
+    x = np.clip(x, -1, 1)
+    res = detect_clicks(x, FS)
+    f, _, _ = mir_eval.onset.f_measure(onsets / FS, np.array([c.time_s for c in res.clicks]),
+                                       window=0.005)
+    assert f >= 0.98
+    assert any("clipping" in w for w in res.warnings)
+
+
+# ---------------------------------------------------------------- kinds
+
+
+def _clicks_from(times, levels, rings):
+    return [Click(time_s=t, sample=int(t * FS), level_dbfs=lv, strength=20.0, ring_hz=r,
+                  decay_s=0.005) for t, lv, r in zip(times, levels, rings)]
+
+
+def test_assign_kinds_two_families_and_a_gap():
+    rng = np.random.default_rng(1)
+    times, levels, rings, truth = [], [], [], []
+    for k in range(60):
+        t0 = k / 10.0
+        times += [t0, t0 + 0.045]
+        levels += [-12 + 0.5 * rng.standard_normal(), -18 + 0.5 * rng.standard_normal()]
+        rings += [1200 * (1 + 0.003 * rng.standard_normal()),
+                  2500 * (1 + 0.003 * rng.standard_normal())]
+        truth += [0, 1]
+    drop = {41, 80, 81, 95}  # a lost second click, a whole lost cycle, a lost main click
+    keep = [i for i in range(len(times)) if i not in drop]
+    clicks = _clicks_from([times[i] for i in keep], [levels[i] for i in keep],
+                          [rings[i] for i in keep])
+    out, cpc = assign_kinds(clicks)
+    assert cpc == 2
+    assert [c.kind for c in out] == [truth[i] for i in keep]
+    # a second click carries the cycle of the main click before it
+    for a, b in zip(out, out[1:]):
+        if b.kind == 1 and a.kind == 0:
+            assert b.cycle == a.cycle
+
+
+def test_assign_kinds_one_family_with_drifting_level():
+    rng = np.random.default_rng(2)
+    t = np.cumsum(np.full(200, 0.08) * (1 + 0.01 * rng.standard_normal(200)))
+    levels = np.linspace(-30, -12, 200) + 0.5 * rng.standard_normal(200)
+    clicks = _clicks_from(t, levels, 1200 * (1 + 0.003 * rng.standard_normal(200)))
+    out, cpc = assign_kinds(clicks)
+    assert cpc == 1
+    assert [c.cycle for c in out] == list(range(200))
+    out2, cpc2 = assign_kinds(clicks, clicks_per_cycle=2)
+    assert cpc2 == 2 and {c.kind for c in out2} <= {0, 1}
