@@ -358,6 +358,7 @@ def _breakable(name: str) -> str:
 
 def print_batch_summary(result: BatchResult, *, console: Any = None, max_rows: int = 40) -> None:
     """Counts, the units that did not pass (with reasons) and the statistics, as rich tables."""
+    from rich import box
     from rich.console import Console
     from rich.markup import escape
     from rich.table import Table
@@ -373,7 +374,7 @@ def print_batch_summary(result: BatchResult, *, console: Any = None, max_rows: i
         con.print(f"[yellow]note:[/] {escape(problem)}")
     bad = [u for u in result.units if u.status != "PASS"]
     if bad:
-        table = Table(title="units that did not pass", title_justify="left")
+        table = Table(title="units that did not pass", title_justify="left", box=box.SIMPLE_HEAD)
         table.add_column("serial")
         table.add_column("verdict")
         table.add_column("reasons")
@@ -384,17 +385,18 @@ def print_batch_summary(result: BatchResult, *, console: Any = None, max_rows: i
         if len(bad) > max_rows:
             table.add_row("…", "", f"{len(bad) - max_rows} more in results.csv")
         con.print(table)
-    stats = Table(title="batch statistics (Cpk interval: 95 %, Bissell)", title_justify="left")
-    stats.add_column("metric", overflow="fold")
-    for col in ("n", "mean", "sd", "yield", "Cpk", "Cpk 95 %", "Ppk", "outl."):
+    stats = Table(title="batch statistics (Cpk interval: 95 %, Bissell)", title_justify="left",
+                  box=box.SIMPLE_HEAD)
+    stats.add_column("metric", overflow="fold", min_width=14)
+    for col in ("n", "yield", "Cpk", "Cpk 95 %", "Ppk", "mean", "sd", "outl."):
         stats.add_column(col, justify="right", no_wrap=True)
     for metric, st in result.stats.items():
         ci = f"{_fmt(st.cpk_low, 2)}…{_fmt(st.cpk_high, 2)}" if st.cpk_low is not None else "—"
         stats.add_row(
             f"{_breakable(metric)}\n[dim]{escape(_limits_text(st.lsl, st.usl))}[/]", str(st.n),
-            _fmt(st.mean), _fmt(st.sd, 3),
             f"{100 * st.yield_frac:.0f} %" if st.yield_frac is not None else "—",
-            _fmt(st.cpk, 3), ci, _fmt(st.ppk, 3), str(len(st.outliers)),
+            _fmt(st.cpk, 3), ci, _fmt(st.ppk, 3), _fmt(st.mean, 3), _fmt(st.sd, 3),
+            str(len(st.outliers)),
         )
     con.print(stats)
     con.print(f"report: {escape(str(result.out_dir / 'index.html'))}")
@@ -437,6 +439,7 @@ def show_history(
     popmeter.errors.UsageError
         ``metric`` is not a summary metric, or has no stored values.
     """
+    from rich import box
     from rich.console import Console
     from rich.markup import escape
     from rich.table import Table
@@ -463,11 +466,13 @@ def show_history(
     if not names:
         con.print("no metric values stored yet")
         return
-    table = Table(title="individuals charts (all units, batch order)", title_justify="left")
-    table.add_column("metric", overflow="fold", ratio=3)
-    for col in ("units", "batches", "centre", "LCL", "UCL", "MR mean", "MR UCL", "rules"):
-        table.add_column(col, justify="right", overflow="fold", ratio=1)
-    viol_table = Table(title="Western Electric rule violations", title_justify="left")
+    table = Table(title="individuals charts (all units, batch order)", title_justify="left",
+                  box=box.SIMPLE_HEAD)
+    table.add_column("metric", overflow="fold", min_width=14)
+    for col in ("n", "batches", "rules", "centre", "LCL", "UCL", "MR mean", "MR UCL"):
+        table.add_column(col, justify="right", no_wrap=True)
+    viol_table = Table(title="Western Electric rule violations", title_justify="left",
+                       box=box.SIMPLE_HEAD)
     for col in ("metric", "chart", "rule", "batch", "serial", "value", "what"):
         viol_table.add_column(col)
     charts: dict[str, tuple[IndividualsChart, list[Any]]] = {}
@@ -475,15 +480,15 @@ def show_history(
         points = series[name]
         batches_here = len({p.batch_id for p in points})
         if len(points) < 2:
-            table.add_row(_breakable(name), str(len(points)), str(batches_here), *["—"] * 5,
-                          "n < 2")
+            table.add_row(_breakable(name), str(len(points)), str(batches_here), "n < 2",
+                          *["—"] * 5)
             continue
         chart = individuals_chart(np.array([p.value for p in points]))
         charts[name] = (chart, points)
         table.add_row(
-            _breakable(name), str(len(points)), str(batches_here), _fmt(chart.center),
-            _fmt(chart.lcl),
-            _fmt(chart.ucl), _fmt(chart.mr_mean), _fmt(chart.mr_ucl), str(len(chart.violations)),
+            _breakable(name), str(len(points)), str(batches_here), str(len(chart.violations)),
+            _fmt(chart.center, 3), _fmt(chart.lcl, 3), _fmt(chart.ucl, 3),
+            _fmt(chart.mr_mean, 3), _fmt(chart.mr_ucl, 3),
         )
         for v in chart.violations:
             p = points[v.index]
