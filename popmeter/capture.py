@@ -77,6 +77,10 @@ WRITE_BATCH_S = 0.25
 #: fallen behind (s); a second bounds the delay of the live view.
 ANALYSIS_BATCH_S = 1.0
 
+#: Interval at which Python hands the GIL between threads during a capture
+#: (s), so that the audio callback waits at most about this long for it.
+GIL_SWITCH_INTERVAL_S = 0.0005
+
 #: Peak level at or above which a block counts as clipped (full scale = 1.0).
 CLIP_LEVEL = 0.999
 
@@ -375,7 +379,10 @@ class _RateTracker:
     the median over the last 8 cycles of ``t[i] - t[i - clicks_per_cycle]``
     (so a two-click engine shows its cycle rate, not twice it); one or two
     clicks per cycle is decided with :func:`popmeter.detection.assign_kinds`
-    on the last 32 clicks, refreshed every 8 clicks. A gap longer than 4 click
+    on all clicks so far (at most the last 400), as the offline analysis does
+    on the whole run, refreshed every 8 clicks from the 64th on: on fewer
+    clicks (an irregular startup) the decision flips, so one click per cycle
+    is shown until then. A gap longer than 4 click
     intervals that ends with a new click counts as a stall. Phases from the
     trend of the rate: rising by over 5 % is startup, falling by over 8 % after
     steady running is fade, an interquartile spread under 8 % is steady
@@ -403,7 +410,8 @@ class _RateTracker:
         self.recent.append(click)
         if len(self.times) > 64:
             del self.times[:-64]
-            del self.recent[:-64]
+        if len(self.recent) > 400:
+            del self.recent[:-400]
         self._decide_cpc()
         period = self._period()
         if period:
@@ -415,7 +423,7 @@ class _RateTracker:
 
     def _decide_cpc(self) -> None:
         self._since_kinds += 1
-        if self.fixed_cpc is not None or len(self.recent) < 12 or self._since_kinds < 8:
+        if self.fixed_cpc is not None or len(self.recent) < 64 or self._since_kinds < 8:
             return
         self._since_kinds = 0
         if self._kinds is None:
@@ -423,7 +431,7 @@ class _RateTracker:
 
             self._kinds = assign_kinds
         try:
-            _, self.clicks_per_cycle = self._kinds(self.recent[-32:])
+            _, self.clicks_per_cycle = self._kinds(self.recent)
         except (AttributeError, TypeError, ValueError):
             # clicks without the features assign_kinds needs (a stand-in
             # detector): keep one click per cycle; the display only.
@@ -1025,12 +1033,18 @@ def listen(
     session = CaptureSession(sink=sink, sample_rate_hz=rate, channels=channels, channel=channel,
                              max_seconds=max_seconds, silence_stop_s=silence_stop_s)
     session.start()
+    # The audio callback needs the GIL within one device period (10 ms at
+    # 512 frames); Python hands the GIL between threads every 5 ms by default,
+    # so a busy analysis thread can make the callback miss its deadline.
+    switch_s = sys.getswitchinterval()
+    sys.setswitchinterval(GIL_SWITCH_INTERVAL_S)
     try:
         stream = sd.InputStream(device=dev.index, channels=channels, samplerate=rate,
                                 dtype="float32", callback=session.callback,
                                 finished_callback=session.stream_finished)
     except Exception as exc:  # noqa: BLE001 - PortAudioError and friends
         session.finish()
+        sys.setswitchinterval(switch_s)
         _remove_empty(out, session)
         raise DeviceError(f"input device {dev.index} ({dev.name}): cannot open it, busy or "
                           f"unavailable ({exc})") from None
@@ -1045,6 +1059,7 @@ def listen(
         if problem and not session.faults:
             session.faults.append(f"input device {dev.index} ({dev.name}) {problem}")
         result = session.finish()
+        sys.setswitchinterval(switch_s)
     return _after_capture(result, out=out, device=dev, channel=channel, profile=profile,
                           qc_spec=qc_spec, json_path=json_path, csv_path=csv_path,
                           report_dir=report_dir, console=console)

@@ -18,6 +18,7 @@ from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import Any, Self
 
+from rich.align import Align
 from rich.console import Console, Group
 from rich.live import Live
 from rich.panel import Panel
@@ -251,13 +252,13 @@ def big_text(word: str) -> str:
         glyph = _GLYPHS.get(ch, ["     "] * 5)
         for i in range(5):
             rows[i] += glyph[i] + "  "
-    return "\n".join(r.rstrip() for r in rows)
+    return "\n".join(r[:-2] for r in rows)  # equal widths: the rows stay aligned when centred
 
 
 def print_big_verdict(console: Console, status: str, reasons: Iterable[str]) -> None:
     """The verdict in letters big enough to read from a step away, with its reasons."""
     style = {"PASS": "bold green3", "FAIL": "bold red3"}.get(status, "bold orange1")
-    body = [Text(big_text(status), style=style, justify="center")]
+    body: list[Any] = [Align.center(Text(big_text(status), style=style, no_wrap=True))]
     for reason in reasons:
         body.append(Text(f"• {reason}"))
     console.print(Panel(Group(*body), title="verdict", border_style=style, expand=False))

@@ -506,15 +506,19 @@ def test_live_rate_is_the_cycle_rate_for_one_and_two_click_engines():
     from popmeter.detection import Click
 
     def engine(clicks_per_cycle):
+        rng = np.random.default_rng(clicks_per_cycle)  # small click-to-click variation
         out = []
-        for k in range(40):  # 10 cycles per second
-            t = 0.5 + 0.1 * k
-            out.append(Click(time_s=t, sample=round(t * SR), level_dbfs=-10.0, strength=20.0,
-                             ring_hz=3000.0, decay_s=0.004))
+        for k in range(80):  # 10 cycles per second
+            t = 0.5 + 0.1 * k + rng.normal(0, 2e-4)
+            out.append(Click(time_s=t, sample=round(t * SR), level_dbfs=-10 + rng.normal(0, 1),
+                             strength=20.0, ring_hz=3000 * (1 + rng.normal(0, 0.01)),
+                             decay_s=0.004 * (1 + rng.normal(0, 0.05))))
             if clicks_per_cycle == 2:  # weaker, higher, shorter second click 30 ms later
-                t2 = t + 0.03
-                out.append(Click(time_s=t2, sample=round(t2 * SR), level_dbfs=-22.0,
-                                 strength=12.0, ring_hz=4500.0, decay_s=0.002))
+                t2 = t + 0.03 + rng.normal(0, 2e-4)
+                out.append(Click(time_s=t2, sample=round(t2 * SR),
+                                 level_dbfs=-22 + rng.normal(0, 1), strength=12.0,
+                                 ring_hz=4500 * (1 + rng.normal(0, 0.01)),
+                                 decay_s=0.002 * (1 + rng.normal(0, 0.05))))
         return out
 
     for cpc in (1, 2):
@@ -522,9 +526,9 @@ def test_live_rate_is_the_cycle_rate_for_one_and_two_click_engines():
         for c in engine(cpc):
             tracker.add(c, c.time_s)
         assert tracker.clicks_per_cycle == cpc
-        assert tracker.rate_hz == pytest.approx(10.0, rel=1e-6)
+        assert tracker.rate_hz == pytest.approx(10.0, rel=0.01)
         assert tracker.phase == "steady" and tracker.stalls == 0
-        tracker.silent_for(5.0)
+        tracker.silent_for(20.0)
         assert tracker.phase == "silent" and tracker.rate_hz is None
     # a pause of 1 s inside a run is a stall
     tracker = capture._RateTracker(clicks_per_cycle=1)

@@ -67,20 +67,38 @@ def _listen(server, out, *args):
                             stderr=subprocess.PIPE, text=True)
 
 
-def test_listen_keeps_every_sample_and_live_clicks_match_offline(jack_server, tmp_path):
-    src, _truth = _source()
-    out = tmp_path / "tank.wav"
-    player = Player(jack_server, src)
+def _capture(server, src, tmp_path, name):
+    out = tmp_path / f"{name}.wav"
+    player = Player(server, src)
     try:
         t0 = time.monotonic()
-        proc = _listen(jack_server, out, "--max-seconds", "12", "--silence-stop", "1.0",
-                       "--json", str(tmp_path / "tank.json"))
+        proc = _listen(server, out, "--max-seconds", "12", "--silence-stop", "1.0",
+                       "--json", str(tmp_path / f"{name}.json"))
         player.connect_when_ready()
         stdout, stderr = proc.communicate(timeout=40)
         wall_s = time.monotonic() - t0
     finally:
         player.close()
     assert proc.returncode == 0, stderr + stdout
+    live = json.loads((tmp_path / f"{name}.live.json").read_text())
+    return out, live, wall_s
+
+
+def test_listen_keeps_every_sample_and_live_clicks_match_offline(jack_server, tmp_path):
+    src, _truth = _source()
+    # The dummy server runs on the wall clock without real-time priority: on
+    # an overloaded machine a JACK cycle can be missed (an xrun), PortAudio
+    # flags it as an input overflow and samples may be lost -- which popmeter
+    # must count and report. Exactness is checked on a run without any; one
+    # retry is allowed.
+    for attempt in range(2):
+        out, live, wall_s = _capture(jack_server, src, tmp_path, f"tank{attempt}")
+        if live["input_overflows"] == 0:
+            break
+    else:
+        pytest.fail(f"input overflows in both attempts ({live['input_overflows']} in the last): "
+                    "the machine is too busy for a real-time capture")
+    name = out.stem
 
     saved, rate = sf.read(out, dtype="float32")
     assert rate == SR
@@ -91,7 +109,6 @@ def test_listen_keeps_every_sample_and_live_clicks_match_offline(jack_server, tm
     assert n >= 0.75 * len(src)  # the run up to 1 s of audio after its last detected click
     np.testing.assert_array_equal(saved[offset:offset + n], src[:n])
 
-    live = json.loads((tmp_path / "tank.live.json").read_text())
     assert live["stop_reason"].startswith("no click for 1 s")
     assert live["dropped_frames"] == 0 and live["faults"] == []
     # audio time, not wall time: the capture ended ~1 s of audio after the last click
@@ -99,7 +116,7 @@ def test_listen_keeps_every_sample_and_live_clicks_match_offline(jack_server, tm
     assert len(saved) / SR == pytest.approx(live_t[-1] + 1.0, abs=0.1)
     assert wall_s < 30
 
-    offline = json.loads((tmp_path / "tank.json").read_text())
+    offline = json.loads((tmp_path / f"{name}.json").read_text())
     off_t = np.array([c["time_s"] for c in offline["clicks"]])
     assert len(off_t) >= 20
     matched = sum(bool(np.min(np.abs(live_t - t)) <= 1e-3) for t in off_t)
