@@ -356,6 +356,10 @@ class ClickDetector:
         self._typ_cache: np.ndarray | None = None
         self._last_onset = -(10 ** 12)
         self._debug: list[dict] | None = None
+        # rejected candidates with a clear onset and ring, for the whole-recording
+        # second look (:func:`_result`): they count if they ring like a family
+        # of the recording's accepted clicks
+        self._second_look: list[Click] = []
         self._bin_votes = np.zeros(nb, dtype=np.int64)
         self._flushed = False
 
@@ -715,6 +719,13 @@ class ClickDetector:
             if not ok:
                 self.rejected += 1
                 self.rejected_times_s.append(onset / fs)
+                if (self.reject and ring is not None and f["attack_s"] <= self.max_attack_s
+                        and f["ring_snr_short_db"] >= self.min_ring_snr_db - 2.0
+                        and len(self._second_look) < 200000):
+                    self._second_look.append(Click(
+                        time_s=onset / fs, sample=onset,
+                        level_dbfs=round(float(f["level_dbfs"]), 3), strength=round(c.z, 3),
+                        ring_hz=ring, decay_s=f["decay_s"]))
                 continue
             self._last_onset = onset
             self._bin_votes[c.band] += 1
@@ -762,6 +773,20 @@ class ClickDetector:
         win = kk[:, None] + np.arange(-3, 4)[None, :]
         ring_snr = 10 * np.log10((power[r_[:, None], win].sum(axis=1) + 1e-40)
                                  / (ppow[r_[:, None], win].sum(axis=1) + 1e-40))
+        # the same on the first 6 ms only: short, bright clicks (a two-click
+        # engine's second click) have little left after that
+        ms = int(0.006 * fs)
+        sh = sp_fft.rfft(tail[:, :ms] * self._taper(ms), n=self._nfft_ring, axis=1)
+        shp = (sh.real ** 2 + sh.imag ** 2)[:, lo_b:hi_b]
+        shpre = sp_fft.rfft(pre[:, m - ms:] * self._taper(ms)[::-1], n=self._nfft_ring, axis=1)
+        shpp = (shpre.real ** 2 + shpre.imag ** 2)[:, lo_b:hi_b]
+        kbs = np.argmax(shp, axis=1)
+        nbs = np.clip(kbs[:, None] + np.arange(-half, half + 1)[None, :], 0, nbb - 1)
+        meds = np.partition(shp[r_[:, None], nbs], half, axis=1)[:, half]
+        tonality_s = 10 * np.log10((shp[r_, kbs] + 1e-40) / (meds + 1e-40))
+        ws = np.clip(kbs[:, None] + np.arange(-6, 7)[None, :], 0, nbb - 1)
+        ring_snr_s = 10 * np.log10((shp[r_[:, None], ws].sum(axis=1) + 1e-40)
+                                   / (shpp[r_[:, None], ws].sum(axis=1) + 1e-40))
         # quadratic interpolation of the log magnitude (Smith & Serra 1987)
         al, be, ga = db[:, 0], db[:, 1], db[:, 2]
         den = al - 2 * be + ga
@@ -811,7 +836,8 @@ class ClickDetector:
         return {"level_dbfs": level, "ring_hz": [float(r) if np.isfinite(r) else None
                                                  for r in ring],
                 "decay_s": decay, "attack_s": attack, "tonality_db": tonality,
-                "ring_snr_db": ring_snr}
+                "ring_snr_db": ring_snr, "tonality_short_db": tonality_s,
+                "ring_snr_short_db": ring_snr_s}
 
     def _taper(self, m: int) -> np.ndarray:
         """Flat, then the right half of a Hann window over the last half (cached)."""
@@ -887,6 +913,51 @@ def reject_atypical(clicks: list[Click], *, tolerance: float = 0.08,
     return kept, dropped
 
 
+def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
+                 tolerance: float = 0.025) -> list[Click]:
+    """Rejected candidates that ring like a family of the accepted clicks.
+
+    A short, bright click (the second click of a two-click engine) often fails
+    the tonality tests on its own, yet rings at the same frequency as dozens
+    of accepted clicks; a noise burst does not.  Families are ring
+    frequencies shared by at least 5 % of the accepted clicks (and 4 or
+    more); a candidate within ``tolerance`` (relative) of one, and not within
+    the refractory time of an accepted click, is promoted.
+    """
+    rings = np.array([c.ring_hz for c in kept if c.ring_hz], dtype=float)
+    if rings.size < 8:
+        return []
+    lr = np.sort(np.log(rings))
+    width = math.log1p(tolerance)
+    need = max(4, int(math.ceil(0.05 * rings.size)))
+    # family centres: densest points (count within +-width) above the need
+    lo = np.searchsorted(lr, lr - width)
+    hi = np.searchsorted(lr, lr + width, side="right")
+    dens = hi - lo
+    centres: list[float] = []
+    for i in np.argsort(-dens, kind="stable"):
+        if dens[i] < need:
+            break
+        if all(abs(lr[i] - c) > 2 * width for c in centres):
+            centres.append(float(lr[i]))
+    if not centres:
+        return []
+    cen = np.array(centres)
+    times = np.array([c.time_s for c in kept])
+    out: list[Click] = []
+    for c in pool:
+        if np.min(np.abs(math.log(c.ring_hz) - cen)) > width:
+            continue
+        j = int(np.searchsorted(times, c.time_s))
+        near = [abs(times[m] - c.time_s) for m in (j - 1, j) if 0 <= m < times.size]
+        if near and min(near) < refractory_s:
+            continue
+        if out and c.time_s - out[-1].time_s < refractory_s:
+            continue
+        out.append(Click(**{**c.__dict__}))
+    return out
+
+
 def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
                  ) -> tuple[list[Click], int]:
     """Decide one or two clicks per cycle and label each click's kind and cycle.
@@ -924,19 +995,16 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
         return out, int(clicks_per_cycle or 1)
     feats = _kind_features(out)
     decided = clicks_per_cycle
-    score = None
+    alt = _alternation(feats) if n >= 12 else 0.0
+    sep, share, cl_labels = _bimodal(feats) if n >= 12 else (0.0, 0.0, np.zeros(n, int))
     if decided is None:
-        if n < 12:
-            decided = 1
-        else:
-            score = _alternation(feats)
-            decided = 2 if score < -0.5 else 1
+        decided = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)) else 1
     if decided == 1 or n < 2:
         for i, c in enumerate(out):
             c.kind = 0
             c.cycle = i
         return out, 1
-    labels = _two_families(out, feats)
+    labels = _two_families(out, feats) if alt < -0.5 or sep < 4.0 else cl_labels
     cycle = -1
     for c, lab in zip(out, labels):
         c.kind = int(lab)
@@ -990,6 +1058,57 @@ def _alternation(feats: np.ndarray) -> float:
         r1 = float(np.dot(r[1:], r[:-1])) / den
         best = min(best, r1)
     return best
+
+
+def _bimodal(feats: np.ndarray) -> tuple[float, float, np.ndarray]:
+    """Two-means split of the clicks on (level above its running median, log ring, log decay).
+
+    Returns the separation of the two groups (distance of the centres along
+    the line joining them, in pooled within-group standard deviations), the
+    smaller group's share, and labels (0 for the louder group).  A second
+    click family that is often missed does not alternate, but still stands
+    apart in level and timbre; one family with drifting level does not.
+    """
+    n = feats.shape[0]
+    lvl = feats[:, 0]
+    # running median over an even window of 10: halfway between two alternating
+    # families, on the main family when the second is sparse
+    pad = np.pad(lvl, (5, 4), mode="edge")
+    trend = np.median(np.lib.stride_tricks.sliding_window_view(pad, 10), axis=1)
+    cols = [lvl - trend, feats[:, 1], feats[:, 2]]
+    z = []
+    for col in cols:
+        s_ = np.median(np.abs(col - np.median(col))) * _MAD_TO_SIGMA
+        s_ = max(s_, 0.05 if col is cols[0] else 0.01)
+        z.append((col - np.median(col)) / s_)
+    X = np.clip(np.column_stack(z), -8, 8)
+    # 2-means (Lloyd 1982), started from the extremes of the level residual
+    order = np.argsort(X[:, 0])
+    ca = X[order[int(0.9 * (n - 1))]].copy()
+    cb = X[order[int(0.1 * (n - 1))]].copy()
+    lab = np.zeros(n, dtype=np.int64)
+    for _ in range(20):
+        da = ((X - ca) ** 2).sum(axis=1)
+        db = ((X - cb) ** 2).sum(axis=1)
+        new = (db < da).astype(np.int64)
+        if new.sum() in (0, n):
+            return 0.0, 0.0, np.zeros(n, dtype=np.int64)
+        if np.array_equal(new, lab) and _ > 0:
+            break
+        lab = new
+        ca, cb = X[lab == 0].mean(axis=0), X[lab == 1].mean(axis=0)
+    d = cb - ca
+    norm = float(np.linalg.norm(d))
+    if norm == 0:
+        return 0.0, 0.0, lab
+    proj = X @ (d / norm)
+    within = np.concatenate([proj[lab == 0] - proj[lab == 0].mean(),
+                             proj[lab == 1] - proj[lab == 1].mean()])
+    sep = norm / (float(np.std(within)) + 1e-9)
+    share = float(min(lab.mean(), 1 - lab.mean()))
+    if np.median(lvl[lab == 1]) > np.median(lvl[lab == 0]):
+        lab = 1 - lab
+    return sep, share, lab
 
 
 def _two_families(clicks: list[Click], feats: np.ndarray) -> np.ndarray:
@@ -1050,6 +1169,14 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         kept, dropped = list(clicks), []
     rejected_times = sorted(list(rejected_times) + [c.time_s for c in dropped])
     rejected += len(dropped)
+    if atypical and det._second_look:
+        promoted = _second_look(kept, det._second_look,
+                                refractory_s=det._refr * det.hop / det.sample_rate_hz)
+        if promoted:
+            kept = sorted(kept + promoted, key=lambda c: c.sample)
+            gone = {c.time_s for c in promoted}
+            rejected_times = [t for t in rejected_times if t not in gone]
+            rejected -= len(promoted)
     labelled, cpc = assign_kinds(kept, clicks_per_cycle=clicks_per_cycle)
     rings = [c.ring_hz for c in labelled if c.kind == 0 and c.ring_hz]
     ring = float(np.median(rings)) if rings else None
