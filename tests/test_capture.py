@@ -535,3 +535,185 @@ def test_live_rate_is_the_cycle_rate_for_one_and_two_click_engines():
     for t in [0.1 * k for k in range(20)] + [3.0 + 0.1 * k for k in range(5)]:
         tracker.add(None, t)
     assert tracker.stalls == 1
+
+
+# --- listen() wired to a stand-in sounddevice (no audio stack) ---------------------
+
+
+class FakeStream:
+    """Plays ``source`` into the callback from a thread, faster than real time.
+
+    ``lose_after`` frames: the device vanishes (callbacks stop, ``active`` turns False).
+    ``interrupt_after`` frames: Ctrl-C reaches the main thread.
+    """
+
+    def __init__(self, sd, *, device, channels, samplerate, dtype, callback, finished_callback):
+        self.sd, self.callback, self.finished = sd, callback, finished_callback
+        self.channels, self.samplerate = channels, samplerate
+        self.active = False
+        self._stop = threading.Event()
+        if sd.open_error:
+            raise sd.PortAudioError(sd.open_error)
+
+    def start(self):
+        self.active = True
+        self._thread = threading.Thread(target=self._run, daemon=True)
+        self._thread.start()
+
+    def _run(self):
+        import _thread
+
+        import sounddevice
+
+        x = self.sd.source
+        for i in range(0, len(x), 480):
+            if self._stop.is_set():
+                return
+            if self.sd.lose_after is not None and i >= self.sd.lose_after:
+                self.active = False
+                return
+            if self.sd.interrupt_after is not None and i >= self.sd.interrupt_after:
+                _thread.interrupt_main()
+                return
+            b = np.repeat(x[i:i + 480, None], self.channels, axis=1)
+            self.callback(b, len(b), None, sounddevice.CallbackFlags())
+            time.sleep(0.0002)
+        # the source is over: the device keeps delivering silence until stopped
+        while not self._stop.is_set():
+            self.callback(np.zeros((480, self.channels), np.float32), 480, None,
+                          sounddevice.CallbackFlags())
+            time.sleep(0.0002)
+
+    def stop(self):
+        self._stop.set()
+        self.active = False
+
+    abort = stop
+
+    def close(self):
+        pass
+
+
+class FakeSounddevice:
+    class PortAudioError(Exception):
+        pass
+
+    def __init__(self, source, *, rates=(48000,), default_rate=48000.0):
+        self.source = source
+        self.rates = set(rates)
+        self.default_rate = default_rate
+        self.open_error = None
+        self.lose_after = None
+        self.interrupt_after = None
+        self.default = type("D", (), {"device": [0, 0]})()
+
+    def query_devices(self):
+        return [{"name": "bench mic", "max_input_channels": 2, "default_samplerate":
+                 self.default_rate, "hostapi": 0}]
+
+    def query_hostapis(self):
+        return [{"name": "stand-in"}]
+
+    def check_input_settings(self, *, device, channels, samplerate, dtype):
+        if samplerate not in self.rates:
+            raise self.PortAudioError(f"Invalid sample rate [{samplerate}]")
+
+    def InputStream(self, **kw):
+        return FakeStream(self, **kw)
+
+
+@pytest.fixture
+def fake_sd(monkeypatch):
+    from popmeter.synth import RunScenario, render
+
+    samples, _ = render(RunScenario(duration_s=8.0, heating_s=0.5, startup_s=2.0, fade_s=2.0,
+                                    after_s=1.0, seed=21))
+    sd = FakeSounddevice(samples[:, 0].astype(np.float32))
+    monkeypatch.setattr(capture, "import_sounddevice", lambda: sd)
+    return sd
+
+
+def _run_listen(tmp_path, capsys, **kw):
+    from rich.console import Console
+
+    buf = io.StringIO()
+    kw.setdefault("silence_stop_s", 1.5)
+    code = capture.listen(out=tmp_path / "take.wav", view=False, json_path=tmp_path / "take.json",
+                          console=Console(file=buf, width=200), **kw)
+    return code, buf.getvalue(), capsys.readouterr().err
+
+
+def test_listen_records_analyses_and_keeps_every_sample(fake_sd, tmp_path, capsys):
+    import json
+
+    code, out, err = _run_listen(tmp_path, capsys)
+    assert code == 0, err
+    assert live_view.CAUTION_LINE[:40] in out and "no click for 1.5 s" in out
+    saved, rate = sf.read(tmp_path / "take.wav", dtype="float32")
+    assert rate == 48000
+    n = min(len(saved), len(fake_sd.source))
+    np.testing.assert_array_equal(saved[:n], fake_sd.source[:n])
+    analysis = json.loads((tmp_path / "take.json").read_text())
+    live = json.loads((tmp_path / "take.live.json").read_text())
+    off_t = np.array([c["time_s"] for c in analysis["clicks"]])
+    live_t = np.array([c["time_s"] for c in live["clicks"]])
+    assert len(off_t) > 30
+    assert sum(bool(np.min(np.abs(live_t - t)) <= 1e-3) for t in off_t) >= 0.98 * len(off_t)
+
+
+def test_listen_falls_back_to_the_device_rate_and_says_so(fake_sd, tmp_path, capsys):
+    fake_sd.rates = {44100}
+    fake_sd.default_rate = 44100.0
+    code, out, err = _run_listen(tmp_path, capsys, max_seconds=2.0)
+    assert code == 0, err
+    assert "does not take 48000 Hz; using its default rate 44100 Hz" in out
+    assert sf.info(tmp_path / "take.wav").samplerate == 44100
+
+
+def test_listen_busy_device_is_one_line_and_leaves_no_file(fake_sd, tmp_path, capsys):
+    fake_sd.open_error = "Device unavailable [PaErrorCode -9985]"
+    with pytest.raises(DeviceError, match=r"input device 0 \(bench mic\): cannot open it, busy"):
+        _run_listen(tmp_path, capsys)
+    assert not (tmp_path / "take.wav").exists()
+
+
+def test_listen_device_lost_keeps_the_audio_and_exits_2(fake_sd, tmp_path, capsys):
+    fake_sd.lose_after = 3 * 48000
+    code, _out, err = _run_listen(tmp_path, capsys)
+    assert code == 2
+    assert "input device stopped during the run (unplugged or lost)" in err
+    assert "recorded are kept in" in err
+    saved, _ = sf.read(tmp_path / "take.wav", dtype="float32")
+    assert len(saved) == 3 * 48000
+    np.testing.assert_array_equal(saved, fake_sd.source[:len(saved)])
+
+
+def test_listen_disk_full_keeps_what_was_written_and_exits_2(fake_sd, tmp_path, capsys,
+                                                             monkeypatch):
+    class FullDisk(WavSink):
+        def write(self, frames):
+            if self.frames_written + len(frames) > 2 * SR:
+                raise OSError(errno.ENOSPC, "No space left on device")
+            super().write(frames)
+
+    monkeypatch.setattr(capture, "WavSink", FullDisk)
+    code, _out, err = _run_listen(tmp_path, capsys)
+    assert code == 2
+    lines = [ln for ln in err.splitlines() if "disk full" in ln]
+    assert len(lines) == 1 and "take.wav" in lines[0] and "kept" in lines[0]
+    saved, _ = sf.read(tmp_path / "take.wav", dtype="float32")
+    assert 0 < len(saved) <= 2 * SR
+    np.testing.assert_array_equal(saved, fake_sd.source[:len(saved)])
+
+
+def test_listen_ctrl_c_ends_cleanly_and_analyses(fake_sd, tmp_path, capsys):
+    import json
+
+    fake_sd.interrupt_after = 4 * 48000
+    code, _out, err = _run_listen(tmp_path, capsys, silence_stop_s=None)
+    assert code == 0, err
+    live = json.loads((tmp_path / "take.live.json").read_text())
+    assert live["stop_reason"] == "stopped by Ctrl-C"
+    saved, _ = sf.read(tmp_path / "take.wav", dtype="float32")
+    assert len(saved) == 4 * 48000
+    assert (tmp_path / "take.json").exists()
