@@ -1195,9 +1195,13 @@ def write_audio(
         raise UsageError(f"{p}: samples exceed full scale (peak {peak:.3f}); scale them "
                          "or write a FLOAT WAV")
     target_dir = os.path.dirname(os.path.abspath(p))
+    os.makedirs(target_dir, exist_ok=True)
     fd, tmp = tempfile.mkstemp(prefix=".popmeter-", suffix=ext if major != "ffmpeg" else ".wav",
                                dir=target_dir)
     os.close(fd)
+    # mkstemp makes the file private (0600); a recording gets the usual
+    # permissions of a new file (owner writes, everyone reads).
+    os.chmod(tmp, 0o644)
     try:
         if major == "ffmpeg":
             _write_ffmpeg(p, tmp, x, rate)

@@ -617,3 +617,16 @@ def test_write_audio_multichannel_any_count(tmp_path):
     ref, rate = sf.read(tmp_path / "six.flac")
     assert ref.shape == x.shape and rate == 16000
     assert np.max(np.abs(ref - x)) <= 1 / 2**23
+
+
+def test_write_audio_creates_folder_and_ordinary_permissions(tmp_path):
+    """A new folder is created, and the file is readable by others like any new
+    file (not the private 0600 of a temporary file)."""
+    import stat
+
+    target = tmp_path / "new" / "deeper" / "rec.flac"
+    x = 0.1 * np.sin(2 * np.pi * 440 * np.arange(48000) / 48000)
+    write_audio(target, x, 48000)
+    assert target.exists()
+    mode = stat.S_IMODE(target.stat().st_mode)
+    assert mode & stat.S_IROTH and mode & stat.S_IRUSR and mode & stat.S_IWUSR
