@@ -311,6 +311,40 @@ def test_disk_full_on_a_real_file_leaves_a_readable_wav(tmp_path):
     np.testing.assert_array_equal(got, x[: len(got)])
 
 
+def test_a_real_short_write_stops_the_capture_and_the_file_stays_readable(tmp_path):
+    # A real failing write from libsndfile, not a stand-in: the file size
+    # limit (RLIMIT_FSIZE, with SIGXFSZ ignored) makes write(2) fail part-way,
+    # as a full disk does (EFBIG instead of ENOSPC).
+    out = tmp_path / "limited.wav"
+    code = (
+        "import resource, signal, types, numpy as np\n"
+        "from popmeter.capture import CaptureSession, WavSink\n"
+        "signal.signal(signal.SIGXFSZ, signal.SIG_IGN)\n"
+        "resource.setrlimit(resource.RLIMIT_FSIZE, (400_000, 400_000))\n"
+        "x = np.arange(3 * 48000, dtype=np.float32)[:, None] / 1e6\n"
+        f"s = CaptureSession(sink=WavSink({str(out)!r}, 48000, 1), sample_rate_hz=48000,\n"
+        "                   channels=1,\n"
+        "                   detector=types.SimpleNamespace(process=lambda b: [], flush=list))\n"
+        "s.start()\n"
+        "for i in range(0, len(x), 4800):\n"
+        "    s.callback(x[i:i + 4800], 4800, None, None)\n"
+        "    while s.frames_written + 4800 * s._queue.qsize() < i + 4800 and not s.stopping:\n"
+        "        pass\n"
+        "r = s.finish()\n"
+        "print(r.frames_written)\n"
+        "print(r.faults[0] if r.faults else '')\n"
+    )
+    p = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=60,
+                       check=False)
+    assert p.returncode == 0, p.stderr
+    written, fault = p.stdout.strip().splitlines()
+    assert fault.startswith(f"cannot write {out}") and "first" in fault and "kept" in fault
+    got, _ = sf.read(out, dtype="float32")
+    x = np.arange(3 * 48000, dtype=np.float32) / 1e6
+    assert 0 < int(written) <= len(got) < len(x)  # what was counted is in the file, and more
+    np.testing.assert_array_equal(got, x[:len(got)])
+
+
 # --- audio time, not wall time -------------------------------------------------
 
 
