@@ -1011,6 +1011,9 @@ def listen(
     channel = 0 if channel is None else int(channel)
     if channel < 0:
         raise UsageError(f"--channel {channel}: must be 0 or more")
+    if out.suffix.lower() != ".wav":
+        raise UsageError(f"{out}: --out must end in .wav (live recordings are saved as WAV, "
+                         "32-bit float)")
     if out.exists():
         raise UsageError(f"{out}: already exists; choose another --out (recordings are never "
                          "overwritten)")

@@ -751,3 +751,12 @@ def test_listen_ctrl_c_ends_cleanly_and_analyses(fake_sd, tmp_path, capsys):
     saved, _ = sf.read(tmp_path / "take.wav", dtype="float32")
     assert len(saved) == 4 * 48000
     assert (tmp_path / "take.json").exists()
+
+
+def test_listen_refuses_other_formats_and_existing_files(fake_sd, tmp_path, capsys):
+    with pytest.raises(UsageError, match=r"take.flac: --out must end in .wav"):
+        capture.listen(out=tmp_path / "take.flac", view=False)
+    (tmp_path / "take.wav").write_bytes(b"an earlier run")
+    with pytest.raises(UsageError, match="take.wav: already exists"):
+        _run_listen(tmp_path, capsys)
+    assert (tmp_path / "take.wav").read_bytes() == b"an earlier run"
