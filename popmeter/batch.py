@@ -698,13 +698,21 @@ def _run_tasks(
                 finish(t, {"error": "the analysis process died (crash or out of memory)"})
 
 
+def _ignore_sigint() -> None:
+    """Worker initializer: Ctrl-C is the main process's business (it stops the pool)."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+
+
 def _pool_pass(
     tasks: list[_Task], jobs: int, finish: Callable[[_Task, dict[str, Any]], None]
 ) -> list[_Task]:
     if not tasks:
         return []
     lost: list[_Task] = []
-    with ProcessPoolExecutor(max_workers=jobs) as pool:
+    pool = ProcessPoolExecutor(max_workers=jobs, initializer=_ignore_sigint)
+    try:
         futures = {pool.submit(_analyse_unit, t): t for t in tasks}
         for future in as_completed(futures):
             task = futures[future]
@@ -716,6 +724,15 @@ def _pool_pass(
             except Exception as error:  # noqa: BLE001 - e.g. an unpicklable analyzer result
                 outcome = {"error": f"analysis failed ({type(error).__name__}: {error})"}
             finish(task, outcome)
+    except BaseException:
+        # Ctrl-C (or any failure of the runner itself): do not wait for the
+        # remaining units; stop the workers now
+        workers = list((getattr(pool, "_processes", None) or {}).values())
+        pool.shutdown(wait=False, cancel_futures=True)
+        for process in workers:
+            process.terminate()
+        raise
+    pool.shutdown(wait=True)
     return lost
 
 
