@@ -67,7 +67,8 @@ def test_individuals_chart_nist_example():
     assert chart.mr_mean == pytest.approx(16.9 / 9, abs=1e-9)
     assert chart.ucl == pytest.approx(55.8041, abs=1e-4)
     assert chart.lcl == pytest.approx(45.8159, abs=1e-4)
-    # moving-range chart: UCL = D4 * MRbar = 3.267 * 1.8778 = 6.1347 (same source)
+    # moving-range chart: UCL = D4 * MRbar with the table's D4 = 3.267 (NIST
+    # 6.3.2.2 computes the MR limits this way; the printed figure from memory)
     assert chart.mr_ucl == pytest.approx(3.267 * 16.9 / 9, abs=2e-3)
     assert chart.mr_lcl == 0.0
     # the example is in control
