@@ -312,19 +312,23 @@ class ClickDetector:
         self._tail = int(round(0.024 * fs))
         self._nfft_ring = int(2 ** math.ceil(math.log2(1.5 * self._tail)))
         self._tapers: dict[int, np.ndarray] = {}
+        self._nfft_short = int(2 ** math.ceil(math.log2(1.5 * 0.006 * fs)))
         self._frame_span = self._n_fft * self._q
         self.max_latency_s = (self._refr * self.hop + self._frame_span + self._tail) / fs
         f_ring = np.arange(self._nfft_ring // 2 + 1) * fs / self._nfft_ring
         self._ring_bins = (int(np.searchsorted(f_ring, 0.8 * self._hp_corner())),
                            int(np.searchsorted(f_ring, min(12000.0, 0.45 * fs))))
+        f_short = np.arange(self._nfft_short // 2 + 1) * fs / self._nfft_short
+        self._short_bins = (int(np.searchsorted(f_short, 0.8 * self._hp_corner())),
+                            int(np.searchsorted(f_short, min(12000.0, 0.45 * fs))))
         self._learn_gap = max(1, int(math.ceil((self._tail + self._post) / self.hop)) + 2)
-        self._checkpoint = int(round(0.5 / 0.002))  # frames between learning updates
+        self._checkpoint = int(round(1.0 / 0.002))  # frames between learning updates
         self._next_cp = self._checkpoint
         self._typ_current: np.ndarray | None = None
 
         # statistics schedule (frames)
         self._stat_win = int(round(2.0 / 0.002))
-        self._stat_every = int(round(0.25 / 0.002))
+        self._stat_every = int(round(0.5 / 0.002))
         self._stat_first = 25
         self._med = np.zeros(nb)
         self._sig = np.ones(nb)
@@ -341,9 +345,9 @@ class ClickDetector:
         self._d0 = 0
         self._n_dec = 0  # decimated samples produced
         self._frames = 0  # frames computed
-        self._L_tail = np.full((self._lag + 1, nb), np.nan)  # last band levels
-        self._lev_hist = np.zeros((0, nb))  # bin levels, frames [_rise0, _frames)
-        self._rise0 = 0
+        self._L_tail = np.full((self._lag + 1, nb), np.inf, dtype=np.float32)  # last levels
+        self._lev_ring = np.zeros((self._stat_win, nb), dtype=np.float32)
+        self._lev_pending: list[tuple[int, np.ndarray]] = []
         self._z_hist = np.zeros(0)  # combined z, frames [_z0, _frames)
         self._zb_hist = np.zeros(0, dtype=np.int64)
         self._z0 = 0
@@ -457,29 +461,26 @@ class ClickDetector:
             frames = np.lib.stride_tricks.sliding_window_view(seg, n)[::h]
             spec = sp_fft.rfft(frames * self._win, axis=1)
             power = spec.real ** 2 + spec.imag ** 2
-            levels = 10.0 * np.log10(power[:, self._bin_lo:self._bin_hi].astype(np.float64)
-                                     * self._scale + 1e-13)
+            levels = 10.0 * np.log10(power[:, self._bin_lo:self._bin_hi] * np.float32(self._scale)
+                                     + np.float32(1e-13))
             allv = np.vstack([self._L_tail, levels])
             lag = self._lag
             # row i of allv is frame f0 - (lag + 1) + i, so the reference of
             # frame f0 + k, max(L[t - lag], L[t - lag - 1]), is rows k + 1 and k
             cur = levels
             ref = np.fmax(allv[1:1 + levels.shape[0]], allv[0:levels.shape[0]])
-            rise = cur - ref
-            rise = np.where(np.isnan(rise), 0.0, rise)
+            rise = cur - ref  # the first frames compare with -inf: no rise is counted there
             self._L_tail = allv[-(lag + 1):]
             self._frames = avail
-            self._lev_hist = np.vstack([self._lev_hist, levels])
+            # ring buffer of the last stat_win frames' levels (row = frame mod stat_win);
+            # written in the order the statistics schedule needs them
+            self._lev_pending.append((f0, levels))
             z, zb, ov = self._zscores(f0, rise, levels)
             self._over_hist = np.vstack([self._over_hist, ov])
             self._z_hist = np.concatenate([self._z_hist, z])
             self._zb_hist = np.concatenate([self._zb_hist, zb])
             # trim rise history
             keep = self._stat_win + self._stat_every
-            if self._lev_hist.shape[0] > 2 * keep:
-                cut = self._lev_hist.shape[0] - keep
-                self._lev_hist = self._lev_hist[cut:]
-                self._rise0 += cut
             # trim decimated buffer: keep from the next frame start
             cut = self._frames * h - self._d0
             if cut > 0:
@@ -507,9 +508,9 @@ class ClickDetector:
                 # gates: a real rise, above the bin's robust spread, and not a
                 # window side-lobe of a far stronger bin (in near-silence the
                 # floor is so low that leakage would pass)
-                top = lev.max(axis=1, keepdims=True)
-                zz = np.where((r >= self.min_rise_db) & (over >= self._k_mad * self._sig)
-                              & (lev >= top - _LEAK_DB) & (lev >= _ABS_FLOOR_DB), over, 0.0)
+                floor = np.maximum(lev.max(axis=1, keepdims=True) - _LEAK_DB, _ABS_FLOOR_DB)
+                ok = (r >= self.min_rise_db) & (over >= self._gate) & (lev >= floor)
+                zz = np.where(ok, over, np.float32(0.0))
                 ov[t - f0:seg_end - f0] = zz
                 best = np.argmax(zz, axis=1)
                 z[t - f0:seg_end - f0] = zz[np.arange(zz.shape[0]), best]
@@ -529,16 +530,35 @@ class ClickDetector:
             return (t // self._stat_first + 1) * self._stat_first
         return (t // self._stat_every + 1) * self._stat_every
 
+    def _fill_ring(self, t: int) -> None:
+        """Write levels of frames < t into the ring buffer."""
+        w = self._stat_win
+        while self._lev_pending:
+            f0, lv = self._lev_pending[0]
+            end = min(t, f0 + lv.shape[0])
+            if end <= f0:
+                break
+            start = max(f0, end - w)
+            idx = np.arange(start, end) % w
+            self._lev_ring[idx] = lv[start - f0:end - f0]
+            if end == f0 + lv.shape[0]:
+                self._lev_pending.pop(0)
+            else:
+                self._lev_pending[0] = (end, lv[end - f0:])
+                break
+
     def _update_stats(self, t: int) -> None:
         lo = max(0, t - self._stat_win)
-        rows = self._lev_hist[lo - self._rise0:t - self._rise0]
-        rows = rows[::4] if rows.shape[0] >= 200 else rows
-        rows = np.ascontiguousarray(rows.T, dtype=np.float32)  # bins x frames
+        self._fill_ring(t)
+        rows = self._lev_ring[:t] if t < self._stat_win else self._lev_ring
+        rows = rows[::8] if rows.shape[0] >= 400 else rows
+        rows = np.ascontiguousarray(rows.T)  # bins x frames (order is irrelevant to a median)
         h = rows.shape[1] // 2  # the (upper) median as an order statistic: fast partition
         med = np.partition(rows, h, axis=1)[:, h]
         mad = np.partition(np.abs(rows - med[:, None]), h, axis=1)[:, h]
-        self._med = med
-        self._sig = np.maximum(_MAD_TO_SIGMA * mad, 0.5)
+        self._med = med.astype(np.float32)
+        self._sig = np.maximum(_MAD_TO_SIGMA * mad, 0.5).astype(np.float32)
+        self._gate = (self._k_mad * self._sig).astype(np.float32)
         self._have_stats = True
 
     def _pick(self, *, final: bool) -> None:
@@ -560,7 +580,19 @@ class ClickDetector:
             right = np.concatenate([right, [-1.0]])
         # candidates are local maxima of the detection function (over all bins)
         hits = np.nonzero((zz >= weak) & (zz >= left) & (zz >= right))[0] + self._decided
-        for t in hits.tolist():
+        # the strong test, vectorised: the largest z within +-r frames (earlier
+        # frames must be strictly lower, later ones not higher)
+        zpad = np.concatenate([np.full(r, -np.inf), z, np.full(r, -np.inf)])
+        hz = hits - z0 + r
+        zh = zpad[hz]
+        if hits.size:
+            left = zpad[hz[:, None] + np.arange(-r, 0)[None, :]].max(axis=1)
+            right = zpad[hz[:, None] + np.arange(1, r + 1)[None, :]].max(axis=1)
+            strong = (zh >= thr) & (zh > left) & (zh >= right)
+            near_strong = (np.maximum(left, right) >= thr) | (zh >= thr)
+        else:
+            strong = near_strong = np.zeros(0, dtype=bool)
+        for t, is_strong, busy in zip(hits.tolist(), strong.tolist(), near_strong.tolist()):
             # learning checkpoint: every candidate older than (checkpoint - gap)
             # is measured first, so that what is learnt from it is the same
             # whatever the block size
@@ -569,17 +601,15 @@ class ClickDetector:
                 self._measure_upto(cp - self._learn_gap)
                 self._typ_current = self._typical_bins(cp - self._learn_gap)
                 self._next_cp = cp + self._checkpoint
-            zt = z[t - z0]
+            if is_strong:
+                self._pending.append(_Candidate(t, float(z[t - z0]),
+                                                int(self._zb_hist[t - z0]), True))
+                continue
+            if busy or self._typ_current is None:
+                continue
             a = max(z0, t - r)
             b = min(self._frames, t + r + 1)
-            if zt >= thr:
-                if np.any(z[a - z0:t - z0] >= zt) or np.any(z[t + 1 - z0:b - z0] > zt):
-                    continue
-                self._pending.append(_Candidate(t, float(zt), int(self._zb_hist[t - z0]), True))
-                continue
             typ = self._typ_current
-            if typ is None or np.any(z[a - z0:b - z0] >= thr):
-                continue
             win = over[a - z0:b - z0][:, typ]
             wmax = win.max(axis=1)
             zt2 = wmax[t - a]
@@ -776,15 +806,19 @@ class ClickDetector:
         # the same on the first 6 ms only: short, bright clicks (a two-click
         # engine's second click) have little left after that
         ms = int(0.006 * fs)
-        sh = sp_fft.rfft(tail[:, :ms] * self._taper(ms), n=self._nfft_ring, axis=1)
-        shp = (sh.real ** 2 + sh.imag ** 2)[:, lo_b:hi_b]
-        shpre = sp_fft.rfft(pre[:, m - ms:] * self._taper(ms)[::-1], n=self._nfft_ring, axis=1)
-        shpp = (shpre.real ** 2 + shpre.imag ** 2)[:, lo_b:hi_b]
+        ns = self._nfft_short
+        sh = sp_fft.rfft(tail[:, :ms] * self._taper(ms), n=ns, axis=1)
+        lo_s, hi_s = self._short_bins
+        shp = (sh.real ** 2 + sh.imag ** 2)[:, lo_s:hi_s]
+        shpre = sp_fft.rfft(pre[:, m - ms:] * self._taper(ms)[::-1], n=ns, axis=1)
+        shpp = (shpre.real ** 2 + shpre.imag ** 2)[:, lo_s:hi_s]
+        nbs_ = shp.shape[1]
         kbs = np.argmax(shp, axis=1)
-        nbs = np.clip(kbs[:, None] + np.arange(-half, half + 1)[None, :], 0, nbb - 1)
-        meds = np.partition(shp[r_[:, None], nbs], half, axis=1)[:, half]
+        hs = max(3, int(0.25 * (lo_s + int(np.median(kbs))))) if k else 3
+        nbs = np.clip(kbs[:, None] + np.arange(-hs, hs + 1)[None, :], 0, nbs_ - 1)
+        meds = np.partition(shp[r_[:, None], nbs], hs, axis=1)[:, hs]
         tonality_s = 10 * np.log10((shp[r_, kbs] + 1e-40) / (meds + 1e-40))
-        ws = np.clip(kbs[:, None] + np.arange(-6, 7)[None, :], 0, nbb - 1)
+        ws = np.clip(kbs[:, None] + np.arange(-1, 2)[None, :], 0, nbs_ - 1)
         ring_snr_s = 10 * np.log10((shp[r_[:, None], ws].sum(axis=1) + 1e-40)
                                    / (shpp[r_[:, None], ws].sum(axis=1) + 1e-40))
         # quadratic interpolation of the log magnitude (Smith & Serra 1987)

@@ -125,7 +125,8 @@ def test_live_latency_and_bounded_memory():
         end = i + len(x[i:i + block])
         for c in got:
             worst = max(worst, (end - c.sample) / FS)
-        biggest = max(biggest, det._x.size, det._d.size, det._lev_hist.shape[0] * 4)
+        biggest = max(biggest, det._x.size, det._d.size,
+                      sum(lv.shape[0] for _, lv in det._lev_pending) * det.hop)
     assert det.max_latency_s <= 0.05
     assert worst <= det.max_latency_s + block / FS
     assert biggest < FS  # well under a second of samples kept
