@@ -485,7 +485,8 @@ def run_batch(
         limits ``diaphragm_stiffness_kpa_per_ml`` then is a usage error).
     out_dir : path-like
         Output folder (created): ``results.csv``, ``results.json``,
-        ``index.html``, ``units/<serial>/`` (each unit's report) and, unless
+        ``index.html``, ``units/<serial>/`` (each unit's run report and
+        ``analysis.json``; for an ERROR unit a page with the reason) and, unless
         ``db`` says otherwise, ``history.sqlite``.
     jobs : int, optional
         Worker processes. Default: the number of usable cores.
@@ -571,6 +572,9 @@ def run_batch(
     _run_tasks(tasks, n_jobs, done, results, len(inputs), progress)
 
     units = sorted(results.values(), key=lambda u: u.position)
+    for unit in units:
+        if unit.report is None and unit.status == "ERROR":
+            unit.report = _write_error_page(unit, out)
     result = BatchResult(
         batch_id=the_batch_id, spec=the_spec, source=str(src.resolve()), out_dir=out,
         units=units, stats=batch_statistics(units, the_spec), problems=problems, jobs=n_jobs,
@@ -609,6 +613,28 @@ def run_batch(
     if progress:
         print_batch_summary(result)
     return result
+
+
+def _write_error_page(unit: UnitResult, out: Path) -> str | None:
+    """A small page in the unit's sub-folder saying why it could not be analysed."""
+    import html
+
+    folder = out / "units" / safe_folder_name(unit.serial)
+    reasons = "".join(f"<li>{html.escape(r)}</li>" for r in unit.verdict.reasons)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+        page = folder / "index.html"
+        page.write_text(
+            '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">'
+            f"<title>{html.escape(unit.serial)}: ERROR</title></head><body>"
+            f"<h1>{html.escape(unit.serial)}: ERROR</h1>"
+            f"<p>file: {html.escape(unit.file or '—')}</p><ul>{reasons}</ul>"
+            "<p>The unit could not be analysed; it does not pass.</p></body></html>",
+            encoding="utf-8",
+        )
+    except OSError:
+        return None
+    return page.relative_to(out).as_posix()
 
 
 def _preload(pipeline: bool, reports: bool) -> None:

@@ -222,8 +222,10 @@ def test_manifest_problems_are_reported_not_followed(tmp_path):
     assert "no file given" in got["U8"].verdict.reasons[0]
     assert any("line 10: no serial" in p for p in result.problems)
     assert any("'colour' ignored" in p for p in result.problems)
-    # nothing outside the folder was ever opened: no unit folder for U3-U5
-    assert not (tmp_path / "out" / "units" / "U3").exists()
+    # nothing outside the folder was analysed: U3's sub-folder holds only the
+    # page that gives the reason
+    assert [p.name for p in (tmp_path / "out" / "units" / "U3").iterdir()] == ["index.html"]
+    assert "not followed" in (tmp_path / "out" / "units" / "U3" / "index.html").read_text()
 
 
 def test_folder_duplicates_and_bad_sources(tmp_path):
@@ -269,7 +271,7 @@ def test_html_escapes_serials_and_file_names(tmp_path):
     # serials become safe folder names inside the output folder
     units_dir = tmp_path / "out" / "units"
     names = sorted(p.name for p in units_dir.iterdir())
-    assert len(names) == 2
+    assert len(names) == 2  # both analysed (the file name is odd, not bad)
     assert all("<" not in n and "/" not in n and not n.startswith(".") for n in names)
     for unit in result.units:
         assert (tmp_path / "out" / unit.report).resolve().is_relative_to(units_dir.resolve())
