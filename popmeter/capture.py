@@ -339,7 +339,7 @@ class LiveState:
     rate_hz: float | None = None
     clicks_per_cycle: int = 1
     rate_trace_hz: list[float] = field(default_factory=list)
-    phase: str = "waiting"
+    phase: str = "heating"  # heating, startup, steady, fade, silent (live labels)
     stalls: int = 0
     overflows: int = 0  # PortAudio input-overflow flags
     dropped_frames: int = 0  # frames lost because the queue was full
@@ -395,7 +395,7 @@ class _RateTracker:
         self.times: list[float] = []
         self.trace: list[float] = []
         self.stalls = 0
-        self.phase = "waiting"
+        self.phase = "heating"
         self.rate_hz: float | None = None
         self.fixed_cpc = clicks_per_cycle
         self.clicks_per_cycle = clicks_per_cycle or 1

@@ -177,7 +177,6 @@ class LiveDisplay:
         self.snapshot = snapshot
         self.console = console or Console()
         self.live = live and self.console.is_terminal
-        self.plain = not live
         self._clock = clock or time.monotonic
         self._next_plain = 0.0
         self._live: Live | None = None
