@@ -14,6 +14,7 @@ from __future__ import annotations
 
 import json
 import os
+import signal
 import subprocess
 import sys
 import time
@@ -28,27 +29,43 @@ pytestmark = pytest.mark.live
 SR = 48000
 
 
-@pytest.fixture
-def jack_server(tmp_path):
-    server = DummyJackServer(f"popmeter-e2e-{os.getpid()}", sample_rate_hz=SR,
-                             log_path=tmp_path / "jackd.log")
+def _start_server(name, log_dir):
+    server = DummyJackServer(name, sample_rate_hz=SR, log_path=log_dir / f"{name}.log")
     try:
         server.start()
     except JackUnavailable as exc:
         pytest.skip(f"live end-to-end test needs a JACK dummy server: {exc}")
+    probe = subprocess.run(
+        [sys.executable, "-c",
+         ("import sounddevice as sd; print(sum(1 for d in sd.query_devices() "
+          "if d['max_input_channels'] > 0 and "
+          "sd.query_hostapis(d['hostapi'])['name'].startswith('JACK')))")],
+        check=False, env=server.env, capture_output=True, text=True, timeout=20)
+    if probe.returncode != 0 or probe.stdout.strip() in ("", "0"):
+        server.stop()
+        pytest.skip("PortAudio does not see the JACK server (libportaudio2 without JACK "
+                    f"support?): {probe.stderr.strip()[-200:]}")
+    return server
+
+
+@pytest.fixture(scope="module")
+def jack_server(tmp_path_factory):
+    """One private dummy server for the tests that leave it running."""
+    server = _start_server(f"popmeter-e2e-{os.getpid()}", tmp_path_factory.mktemp("jack"))
     try:
-        probe = subprocess.run(
-            [sys.executable, "-c",
-             ("import sounddevice as sd; print(sum(1 for d in sd.query_devices() "
-              "if d['max_input_channels'] > 0 and "
-              "sd.query_hostapis(d['hostapi'])['name'].startswith('JACK')))")],
-            check=False, env=server.env, capture_output=True, text=True, timeout=20)
-        if probe.returncode != 0 or probe.stdout.strip() in ("", "0"):
-            pytest.skip("PortAudio does not see the JACK server (libportaudio2 without JACK "
-                        f"support?): {probe.stderr.strip()[-200:]}")
         yield server
     finally:
         server.stop()  # always: the finalizer kills jackd by its pid
+
+
+@pytest.fixture
+def own_jack_server(tmp_path):
+    """A server of its own, for a test that kills it."""
+    server = _start_server(f"popmeter-e2e-lost-{os.getpid()}", tmp_path)
+    try:
+        yield server
+    finally:
+        server.stop()
 
 
 def _source(seed=3):
@@ -152,7 +169,8 @@ def test_missing_device_is_one_line_and_exit_2(jack_server, tmp_path):
     assert not out.exists()
 
 
-def test_device_lost_mid_run_keeps_the_audio_and_says_so(jack_server, tmp_path):
+def test_device_lost_mid_run_keeps_the_audio_and_says_so(own_jack_server, tmp_path):
+    jack_server = own_jack_server
     src, _ = _source(seed=5)
     out = tmp_path / "lost.wav"
     player = Player(jack_server, src)
@@ -171,3 +189,28 @@ def test_device_lost_mid_run_keeps_the_audio_and_says_so(jack_server, tmp_path):
     played = player.pos - skipped  # source samples that reached the capture
     assert played > SR  # more than a second was captured and kept
     np.testing.assert_array_equal(saved[offset:offset + played], src[skipped:skipped + played])
+
+
+def test_ctrl_c_ends_the_capture_cleanly_and_analyses_it(jack_server, tmp_path):
+    src, _ = _source(seed=7)
+    out = tmp_path / "interrupted.wav"
+    player = Player(jack_server, src)
+    proc = _listen(jack_server, out, "--max-seconds", "20", "--json",
+                   str(tmp_path / "interrupted.json"))
+    try:
+        player.connect_when_ready()
+        time.sleep(2.0)
+        proc.send_signal(signal.SIGINT)  # what Ctrl-C sends
+        stdout, stderr = proc.communicate(timeout=30)
+    finally:
+        player.close()
+    assert proc.returncode == 0, stderr + stdout
+    live = json.loads((tmp_path / "interrupted.live.json").read_text())
+    assert live["stop_reason"] == "stopped by Ctrl-C"
+    analysis = json.loads((tmp_path / "interrupted.json").read_text())
+    saved, _ = sf.read(out, dtype="float32")
+    assert analysis["source"]["duration_s"] == pytest.approx(len(saved) / SR)
+    assert 1.5 < len(saved) / SR < 5.0
+    if live["input_overflows"] == 0:
+        offset, skipped = align(saved, src)
+        np.testing.assert_array_equal(saved[offset:], src[skipped:skipped + len(saved) - offset])
