@@ -174,6 +174,7 @@ class _Candidate:
     z: float
     band: int
     strong: bool = True
+    ring_range_hz: tuple[float, float] | None = None
 
 
 class ClickDetector:
@@ -303,6 +304,7 @@ class ClickDetector:
         if band_hz is not None:
             hp = min(hp, 0.5 * float(band_hz[0]))
         self._hp_sos = signal.butter(2, hp, "highpass", fs=fs, output="sos")
+        self._hp_sos_32 = self._hp_sos.astype(np.float32)
         self._hp_warm = int(round(10.0 / (2 * math.pi * hp) * fs))  # ten time constants
 
         # timing constants (input samples)
@@ -339,7 +341,7 @@ class ClickDetector:
         self.clipped_samples = 0
         self.rejected = 0
         self.rejected_times_s: list[float] = []
-        self._x = np.zeros(0, dtype=np.float64)  # raw, from _x0
+        self._x = np.zeros(0, dtype=np.float32)  # raw, from _x0
         self._x0 = 0
         self._d = np.zeros(0, dtype=np.float32)  # decimated, from _d0
         self._d0 = 0
@@ -406,7 +408,7 @@ class ClickDetector:
         self.clipped_samples += int(np.count_nonzero(np.abs(x) >= 0.9999))
         start = self.samples_seen
         self.samples_seen += x.size
-        self._x = np.concatenate([self._x, x])
+        self._x = np.concatenate([self._x, x.astype(np.float32)])
         # decimate: FIR with carried history, keep samples whose index is a multiple of q
         if self._q > 1:
             q = self._q
@@ -593,17 +595,18 @@ class ClickDetector:
         else:
             strong = near_strong = np.zeros(0, dtype=bool)
         for t, is_strong, busy in zip(hits.tolist(), strong.tolist(), near_strong.tolist()):
-            # learning checkpoint: every candidate older than (checkpoint - gap)
-            # is measured first, so that what is learnt from it is the same
-            # whatever the block size
+            # learning checkpoint: the bins where the strong candidates before
+            # it rang; fixed frame numbers, so the same whatever the block size
             if t >= self._next_cp:
                 cp = (t // self._checkpoint) * self._checkpoint
-                self._measure_upto(cp - self._learn_gap)
-                self._typ_current = self._typical_bins(cp - self._learn_gap)
+                self._typ_current = self._typical_bins(cp)
                 self._next_cp = cp + self._checkpoint
             if is_strong:
-                self._pending.append(_Candidate(t, float(z[t - z0]),
-                                                int(self._zb_hist[t - z0]), True))
+                band = int(self._zb_hist[t - z0])
+                self._pending.append(_Candidate(t, float(z[t - z0]), band, True))
+                self._strong_hist.append((t, band))
+                if len(self._strong_hist) > 256:
+                    del self._strong_hist[:128]
                 continue
             if busy or self._typ_current is None:
                 continue
@@ -616,7 +619,8 @@ class ClickDetector:
             if zt2 < weak or np.any(wmax[:t - a] >= zt2) or np.any(wmax[t - a + 1:] > zt2):
                 continue
             band = int(typ[int(np.argmax(win[t - a]))])
-            self._pending.append(_Candidate(t, float(zt2), band, False))
+            rng = (float(self._bin_hz[typ[0]] - self._df), float(self._bin_hz[typ[-1]] + self._df))
+            self._pending.append(_Candidate(t, float(zt2), band, False, rng))
         self._decided = upto
         keep_from = max(0, self._decided - r - 1)
         if keep_from > z0:
@@ -626,7 +630,7 @@ class ClickDetector:
             self._z0 = keep_from
 
     def _typical_bins(self, limit_frame: int) -> np.ndarray | None:
-        """Bins where the strong clicks so far (onset frame <= limit) rang."""
+        """Bins where the strong candidates before frame ``limit_frame`` rang (or None)."""
         hist = self._strong_hist
         n = len(hist)
         while n and hist[n - 1][0] >= limit_frame:
@@ -685,10 +689,11 @@ class ClickDetector:
     def _window(self, starts: np.ndarray, length: int) -> np.ndarray:
         """Rows x[start:start + length] of the kept raw samples, zero outside."""
         x, x0 = self._x, self._x0
-        idx = starts[:, None] - x0 + np.arange(length)[None, :]
-        ok = (idx >= 0) & (idx < x.size)
-        out = np.zeros(idx.shape)
-        out[ok] = x[idx[ok]]
+        out = np.zeros((len(starts), length), dtype=np.float32)
+        for i, st in enumerate((starts - x0).tolist()):
+            a, b = max(st, 0), min(st + length, x.size)
+            if b > a:
+                out[i, a - st:b - st] = x[a:b]
         return out
 
     def _measure(self, cands: list[_Candidate]) -> list[Click]:
@@ -702,7 +707,7 @@ class ClickDetector:
         lead = self._hp_warm + self._tail + self._pre + 2 * self.hop
         length = lead + search + self._tail + self._post
         w0 = frames * self.hop - lead
-        y = signal.sosfilt(self._hp_sos, self._window(w0, length), axis=1)
+        y = signal.sosfilt(self._hp_sos_32, self._window(w0, length), axis=1)
         # coarse: peak of |y| over the frame holding the rise
         s0 = lead
         p = s0 + np.argmax(np.abs(y[:, s0:s0 + search]), axis=1)
@@ -739,13 +744,8 @@ class ClickDetector:
                 elif f["ring_snr_db"] < self.min_ring_snr_db:
                     ok = False
                 elif not c.strong:
-                    typ = self._typ_current
-                    if ring is None or typ is None:
-                        ok = False
-                    else:
-                        lo = self._bin_hz[typ[0]] - self._df
-                        hi = self._bin_hz[typ[-1]] + self._df
-                        ok = lo <= ring <= hi
+                    rr = c.ring_range_hz
+                    ok = ring is not None and rr is not None and rr[0] <= ring <= rr[1]
             if not ok:
                 self.rejected += 1
                 self.rejected_times_s.append(onset / fs)
@@ -759,10 +759,6 @@ class ClickDetector:
                 continue
             self._last_onset = onset
             self._bin_votes[c.band] += 1
-            if c.strong:
-                self._strong_hist.append((c.frame, c.band))
-                if len(self._strong_hist) > 256:
-                    del self._strong_hist[:128]
             clicks.append(Click(time_s=onset / fs, sample=onset,
                                 level_dbfs=round(float(f["level_dbfs"]), 3),
                                 strength=round(c.z, 3), ring_hz=ring, decay_s=f["decay_s"]))
@@ -791,18 +787,18 @@ class ClickDetector:
         kb = np.argmax(band, axis=1)
         r_ = np.arange(k)
         db = 10 * np.log10(band[r_[:, None], np.clip(kb[:, None] + np.arange(-1, 2), 0, nbb - 1)]
-                           + 1e-40)
+                           + 1e-30)
         # tonality: peak over the median of the neighbourhood (+-25 % in frequency)
         half = max(4, int(0.25 * (lo_b + int(np.median(kb))))) if k else 4
         nbh = np.clip(kb[:, None] + np.arange(-half, half + 1)[None, :], 0, nbb - 1)
         local = band[r_[:, None], nbh]
         medp = np.partition(local, half, axis=1)[:, half]
-        tonality = db[:, 1] - 10 * np.log10(medp + 1e-40)
+        tonality = db[:, 1] - 10 * np.log10(medp + 1e-30)
         # ring-to-noise: the same bins before the onset
         kk = lo_b + kb
         win = kk[:, None] + np.arange(-3, 4)[None, :]
-        ring_snr = 10 * np.log10((power[r_[:, None], win].sum(axis=1) + 1e-40)
-                                 / (ppow[r_[:, None], win].sum(axis=1) + 1e-40))
+        ring_snr = 10 * np.log10((power[r_[:, None], win].sum(axis=1) + 1e-30)
+                                 / (ppow[r_[:, None], win].sum(axis=1) + 1e-30))
         # the same on the first 6 ms only: short, bright clicks (a two-click
         # engine's second click) have little left after that
         ms = int(0.006 * fs)
@@ -817,10 +813,10 @@ class ClickDetector:
         hs = max(3, int(0.25 * (lo_s + int(np.median(kbs))))) if k else 3
         nbs = np.clip(kbs[:, None] + np.arange(-hs, hs + 1)[None, :], 0, nbs_ - 1)
         meds = np.partition(shp[r_[:, None], nbs], hs, axis=1)[:, hs]
-        tonality_s = 10 * np.log10((shp[r_, kbs] + 1e-40) / (meds + 1e-40))
+        tonality_s = 10 * np.log10((shp[r_, kbs] + 1e-30) / (meds + 1e-30))
         ws = np.clip(kbs[:, None] + np.arange(-1, 2)[None, :], 0, nbs_ - 1)
-        ring_snr_s = 10 * np.log10((shp[r_[:, None], ws].sum(axis=1) + 1e-40)
-                                   / (shpp[r_[:, None], ws].sum(axis=1) + 1e-40))
+        ring_snr_s = 10 * np.log10((shp[r_[:, None], ws].sum(axis=1) + 1e-30)
+                                   / (shpp[r_[:, None], ws].sum(axis=1) + 1e-30))
         # quadratic interpolation of the log magnitude (Smith & Serra 1987)
         al, be, ga = db[:, 0], db[:, 1], db[:, 2]
         den = al - 2 * be + ga
@@ -832,22 +828,39 @@ class ClickDetector:
         # envelope, far less noisy than the broadband one)
         attack = np.ones(k)
         decay: list[float | None] = [None] * k
-        have = np.isfinite(ring)
+        # (only where the cheap tests leave a chance: a clear ring standing
+        # above the noise)
+        have = np.isfinite(ring) & (((tonality >= self.min_tonality_db)
+                                     & (ring_snr >= self.min_ring_snr_db))
+                                    | (ring_snr_s >= self.min_ring_snr_db - 2.0))
         if have.any():
+            sel_rows = np.nonzero(have)[0]
+            w = (-2j * math.pi * ring[sel_rows] / fs)[:, None]
+            rs = sel_rows[:, None]
+
+            def block_env(sig: np.ndarray, blk: int) -> np.ndarray:
+                # |mean over each block of sig * exp(-i w n)|: the phase that
+                # carries over from block to block has modulus one, so one
+                # block-long phasor serves every block
+                nbk = sig.shape[1] // blk
+                base = np.exp(w * np.arange(blk)[None, :]).astype(np.complex64)
+                xb = sig[:, :nbk * blk].reshape(sig.shape[0], nbk, blk)
+                return np.abs(np.einsum("kjb,kb->kj", xb, base)) / blk
+
             blk = max(1, int(round(0.0005 * fs)))
             nab = 20
-            nt = np.arange(max(nab * blk, m))
-            ph = np.exp(np.outer(-2j * math.pi * np.where(have, ring, 0.0) / fs, nt))
-            first = y[rows, on[:, None] + np.arange(nab * blk)[None, :]]
-            env = np.abs((first * ph[:, :nab * blk]).reshape(k, nab, blk).mean(axis=2))
-            attack = np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1) * blk / fs
+            first = y[rs, on[sel_rows][:, None] + np.arange(nab * blk)[None, :]]
+            env = block_env(first, blk)
+            attack = np.ones(k)
+            attack[sel_rows] = (np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1)
+                                * blk / fs)
             blk2 = 2 * blk
             nb = m // blk2
-            env_t = np.abs((tail[:, :nb * blk2] * ph[:, :nb * blk2]).reshape(k, nb, blk2)
-                           .mean(axis=2))
+            env_t = block_env(tail[sel_rows], blk2)
             npb = self._pre // blk2
-            pre_d = y[rows, (on - gap - npb * blk2)[:, None] + np.arange(npb * blk2)[None, :]]
-            env_p = np.abs((pre_d * ph[:, :npb * blk2]).reshape(k, npb, blk2).mean(axis=2))
+            pre_d = y[rs, (on[sel_rows] - gap - npb * blk2)[:, None]
+                      + np.arange(npb * blk2)[None, :]]
+            env_p = block_env(pre_d, blk2)
             env_db = 20 * np.log10(env_t + 1e-12)
             floor_db = 10 * np.log10(np.mean(env_p ** 2, axis=1) + 1e-24) + 6.0
             # straight line through the tail's level in dB, from its peak block
@@ -865,8 +878,8 @@ class ClickDetector:
             sxx = (dt * dt).sum(axis=1)
             sxy = (dt * (env_db - my[:, None])).sum(axis=1)
             slope = np.where(sxx > 0, sxy / np.where(sxx > 0, sxx, 1.0), 0.0)
-            for i in np.nonzero(have & (cnt >= 3) & (slope < 0))[0]:
-                decay[i] = float(-_DB_PER_NEPER / slope[i])
+            for i in np.nonzero((cnt >= 3) & (slope < 0))[0]:
+                decay[int(sel_rows[i])] = float(-_DB_PER_NEPER / slope[i])
         return {"level_dbfs": level, "ring_hz": [float(r) if np.isfinite(r) else None
                                                  for r in ring],
                 "decay_s": decay, "attack_s": attack, "tonality_db": tonality,
@@ -877,7 +890,7 @@ class ClickDetector:
         """Flat, then the right half of a Hann window over the last half (cached)."""
         t = self._tapers.get(m)
         if t is None:
-            t = np.ones(m)
+            t = np.ones(m, dtype=np.float32)
             ht = m // 2
             if ht:
                 t[m - ht:] = np.hanning(2 * ht)[ht:]
