@@ -38,13 +38,13 @@ from popmeter import synth
 from popmeter.detection import detect_clicks, detect_clicks_in_blocks
 
 SCENARIOS = {
-    "1-click dry": dict(clicks_per_cycle=1),
-    "2-click dry": dict(clicks_per_cycle=2),
-    "1-click reverb": dict(clicks_per_cycle=1, reverb_rt60_s=0.5),
-    "2-click reverb": dict(clicks_per_cycle=2, reverb_rt60_s=0.5, steady_rate_hz=16.0),
-    "speech+splash+hum": dict(clicks_per_cycle=1, hum_dbfs=-40.0,
-                              distractors=("speech", "splash", "speech")),
-    "match+knock, 2-click": dict(clicks_per_cycle=2, distractors=("match", "knock")),
+    "1-click dry": {"clicks_per_cycle": 1},
+    "2-click dry": {"clicks_per_cycle": 2},
+    "1-click reverb": {"clicks_per_cycle": 1, "reverb_rt60_s": 0.5},
+    "2-click reverb": {"clicks_per_cycle": 2, "reverb_rt60_s": 0.5, "steady_rate_hz": 16.0},
+    "speech+splash+hum": {"clicks_per_cycle": 1, "hum_dbfs": -40.0,
+                              "distractors": ("speech", "splash", "speech")},
+    "match+knock, 2-click": {"clicks_per_cycle": 2, "distractors": ("match", "knock")},
 }
 
 
@@ -131,7 +131,7 @@ def alone(seeds: list[int]) -> None:
             sc = synth.RunScenario(duration_s=10.0, heating_s=9.0, startup_s=0.3, fade_s=0.3,
                                    after_s=0.2, click_to_noise_db=30.0, seed=seed,
                                    distractors=(synth.Distractor(kind, time_s=2.0),))
-            x, truth = synth.render(sc)
+            x, _truth = synth.render(sc)
             x = x[: int(8.5 * sc.sample_rate_hz), 0]  # before the first engine click
             res = detect_clicks(x, sc.sample_rate_hz)
             clicks += len(res.clicks)
@@ -196,7 +196,7 @@ def memory(tmp: str, hours: float) -> None:
     x, _ = synth.render(sc)
     minute = x[:, 0]
     path = os.path.join(tmp, "long.wav")
-    n_min = int(round(hours * 60))
+    n_min = round(hours * 60)
     with sf.SoundFile(path, "w", samplerate=sc.sample_rate_hz, channels=1,
                       subtype="PCM_16") as f:
         for _ in range(n_min):

@@ -263,7 +263,7 @@ class ClickDetector:
         self._q = max(1, int(fs // 20000.0))
         fs_d = fs / self._q
         self._fs_d = fs_d
-        self._hop_d = max(1, int(round(0.002 * fs_d)))  # <= 2 ms
+        self._hop_d = max(1, round(0.002 * fs_d))  # <= 2 ms
         self.hop = self._hop_d * self._q  # in input samples
         self._n_fft = int(2 ** round(math.log2(0.0107 * fs_d)))
         self._win = np.hanning(self._n_fft + 2)[1:-1].astype(np.float32)
@@ -305,13 +305,13 @@ class ClickDetector:
             hp = min(hp, 0.5 * float(band_hz[0]))
         self._hp_sos = signal.butter(2, hp, "highpass", fs=fs, output="sos")
         self._hp_sos_32 = self._hp_sos.astype(np.float32)
-        self._hp_warm = int(round(10.0 / (2 * math.pi * hp) * fs))  # ten time constants
+        self._hp_warm = round(10.0 / (2 * math.pi * hp) * fs)  # ten time constants
 
         # timing constants (input samples)
-        self._refr = max(1, int(round(fs / max_rate_hz / self.hop)))  # frames
-        self._pre = int(round(0.008 * fs))
-        self._post = int(round(0.001 * fs))
-        self._tail = int(round(0.024 * fs))
+        self._refr = max(1, round(fs / max_rate_hz / self.hop))  # frames
+        self._pre = round(0.008 * fs)
+        self._post = round(0.001 * fs)
+        self._tail = round(0.024 * fs)
         self._nfft_ring = int(2 ** math.ceil(math.log2(1.5 * self._tail)))
         self._tapers: dict[int, np.ndarray] = {}
         self._nfft_short = int(2 ** math.ceil(math.log2(1.5 * 0.006 * fs)))
@@ -323,14 +323,14 @@ class ClickDetector:
         f_short = np.arange(self._nfft_short // 2 + 1) * fs / self._nfft_short
         self._short_bins = (int(np.searchsorted(f_short, 0.8 * self._hp_corner())),
                             int(np.searchsorted(f_short, min(12000.0, 0.45 * fs))))
-        self._learn_gap = max(1, int(math.ceil((self._tail + self._post) / self.hop)) + 2)
-        self._checkpoint = int(round(1.0 / 0.002))  # frames between learning updates
+        self._learn_gap = max(1, math.ceil((self._tail + self._post) / self.hop) + 2)
+        self._checkpoint = round(1.0 / 0.002)  # frames between learning updates
         self._next_cp = self._checkpoint
         self._typ_current: np.ndarray | None = None
 
         # statistics schedule (frames)
-        self._stat_win = int(round(2.0 / 0.002))
-        self._stat_every = int(round(0.5 / 0.002))
+        self._stat_win = round(2.0 / 0.002)
+        self._stat_every = round(0.5 / 0.002)
         self._stat_first = 25
         self._med = np.zeros(nb)
         self._sig = np.ones(nb)
@@ -481,8 +481,6 @@ class ClickDetector:
             self._over_hist = np.vstack([self._over_hist, ov])
             self._z_hist = np.concatenate([self._z_hist, z])
             self._zb_hist = np.concatenate([self._zb_hist, zb])
-            # trim rise history
-            keep = self._stat_win + self._stat_every
             # trim decimated buffer: keep from the next frame start
             cut = self._frames * h - self._d0
             if cut > 0:
@@ -550,7 +548,6 @@ class ClickDetector:
                 break
 
     def _update_stats(self, t: int) -> None:
-        lo = max(0, t - self._stat_win)
         self._fill_ring(t)
         rows = self._lev_ring[:t] if t < self._stat_win else self._lev_ring
         rows = rows[::8] if rows.shape[0] >= 400 else rows
@@ -642,7 +639,7 @@ class ClickDetector:
             return self._typ_cache
         bins = np.array([hb for _, hb in hist[max(0, n - 64):n]], dtype=np.int64)
         counts = np.bincount(bins, minlength=len(self._bin_hz))
-        need = max(2, int(math.ceil(0.15 * bins.size)))
+        need = max(2, math.ceil(0.15 * bins.size))
         sel = counts >= need
         if not sel.any():
             sel = counts == counts.max()
@@ -737,11 +734,8 @@ class ClickDetector:
             ring = f["ring_hz"]
             ok = True
             if self.reject:
-                if f["attack_s"] > self.max_attack_s:
-                    ok = False
-                elif f["tonality_db"] < self.min_tonality_db:
-                    ok = False
-                elif f["ring_snr_db"] < self.min_ring_snr_db:
+                if (f["attack_s"] > self.max_attack_s or f["tonality_db"] < self.min_tonality_db
+                        or f["ring_snr_db"] < self.min_ring_snr_db):
                     ok = False
                 elif not c.strong:
                     rr = c.ring_range_hz
@@ -847,7 +841,7 @@ class ClickDetector:
                 xb = sig[:, :nbk * blk].reshape(sig.shape[0], nbk, blk)
                 return np.abs(np.einsum("kjb,kb->kj", xb, base)) / blk
 
-            blk = max(1, int(round(0.0005 * fs)))
+            blk = max(1, round(0.0005 * fs))
             nab = 20
             first = y[rs, on[sel_rows][:, None] + np.arange(nab * blk)[None, :]]
             env = block_env(first, blk)
@@ -938,7 +932,7 @@ def reject_atypical(clicks: list[Click], *, tolerance: float = 0.08,
     hist, _ = np.histogram(lr, bins=edges)
     # two-bin sliding sum: a family counted across bin edges
     sums = hist[:-1] + hist[1:]
-    need = max(3, int(math.ceil(min_share * ok.sum())))
+    need = max(3, math.ceil(min_share * ok.sum()))
     centres = []
     for j in range(len(sums)):
         if sums[j] >= need and sums[j] >= (sums[j - 1] if j > 0 else 0) and \
@@ -976,7 +970,7 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
         return []
     lr = np.sort(np.log(rings))
     width = math.log1p(tolerance)
-    need = max(4, int(math.ceil(0.05 * rings.size)))
+    need = max(4, math.ceil(0.05 * rings.size))
     # family centres: densest points (count within +-width) above the need
     lo = np.searchsorted(lr, lr - width)
     hi = np.searchsorted(lr, lr + width, side="right")
@@ -1001,7 +995,7 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
             continue
         if out and c.time_s - out[-1].time_s < refractory_s:
             continue
-        out.append(Click(**{**c.__dict__}))
+        out.append(Click(**c.__dict__))
     return out
 
 
@@ -1037,7 +1031,7 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     if clicks_per_cycle not in (None, 1, 2):
         raise UsageError(f"clicks_per_cycle={clicks_per_cycle}: must be 1 or 2")
     n = len(clicks)
-    out = [Click(**{**c.__dict__}) for c in clicks]
+    out = [Click(**c.__dict__) for c in clicks]
     if n == 0:
         return out, int(clicks_per_cycle or 1)
     feats = _kind_features(out)
@@ -1200,9 +1194,9 @@ def _two_families(clicks: list[Click], feats: np.ndarray) -> np.ndarray:
     for i in range(n - 1, 0, -1):
         lab[i - 1] = back[lab[i], i]
     lvl = feats[:, 0]
-    if np.any(lab == 0) and np.any(lab == 1):
-        if np.median(lvl[lab == 1]) > np.median(lvl[lab == 0]):
-            lab = 1 - lab
+    if (np.any(lab == 0) and np.any(lab == 1)
+            and np.median(lvl[lab == 1]) > np.median(lvl[lab == 0])):
+        lab = 1 - lab
     return lab
 
 

@@ -12,6 +12,7 @@ Outside references used here:
 
 from __future__ import annotations
 
+import itertools
 import math
 
 import mir_eval
@@ -55,7 +56,7 @@ def own_clicks(duration_s: float = 6.0, *, rate_hz: float = 11.0, f_hz: float = 
     onsets = []
     t = 0.3
     while t < duration_s - 0.1:
-        n0 = int(round(t * FS))
+        n0 = round(t * FS)
         m = min(int(0.06 * FS), n - n0)
         x[n0:n0 + m] += ring(m, f_hz * (1 + 0.002 * rng.standard_normal()), tau_s, amp)[:m]
         onsets.append(n0)
@@ -70,7 +71,7 @@ def test_decaying_sinusoids_found_to_the_sample():
     x, onsets = own_clicks()
     res = detect_clicks(x, FS)
     est = np.array([c.sample for c in res.clicks])
-    f, p, r = mir_eval.onset.f_measure(onsets / FS, est / FS, window=0.005)  # mir_eval
+    f, _p, _r = mir_eval.onset.f_measure(onsets / FS, est / FS, window=0.005)  # mir_eval
     assert f == 1.0
     err = np.abs(est - onsets)
     assert np.median(err) <= 2  # samples (0.04 ms)
@@ -115,7 +116,7 @@ def test_same_clicks_whatever_the_block_size(block):
 
 
 def test_live_latency_and_bounded_memory():
-    x, onsets = own_clicks(duration_s=8.0, noise_rms=0.005)
+    x, _onsets = own_clicks(duration_s=8.0, noise_rms=0.005)
     det = ClickDetector(FS)
     block = 1024
     worst = 0.0
@@ -203,7 +204,7 @@ def test_assign_kinds_two_families_and_a_gap():
     assert cpc == 2
     assert [c.kind for c in out] == [truth[i] for i in keep]
     # a second click carries the cycle of the main click before it
-    for a, b in zip(out, out[1:]):
+    for a, b in itertools.pairwise(out):
         if b.kind == 1 and a.kind == 0:
             assert b.cycle == a.cycle
 
