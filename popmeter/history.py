@@ -30,7 +30,8 @@ import json
 import math
 import os
 import zlib
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
@@ -388,10 +389,13 @@ class History:
             )
         )
 
-    def _write(self) -> Any:
+    @contextmanager
+    def _write(self) -> Iterator[Connection]:
+        """One write transaction; database failures become :class:`HistoryError`."""
         try:
-            return self.engine.begin()
-        except sa.exc.OperationalError as error:
+            with self.engine.begin() as conn:
+                yield conn
+        except (sa.exc.OperationalError, sa.exc.IntegrityError, sa.exc.ProgrammingError) as error:
             raise HistoryError(f"{self.display_url}: cannot write ({_first_line(error)})") from None
 
     # -- reading --------------------------------------------------------------
