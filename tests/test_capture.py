@@ -67,9 +67,11 @@ class MemorySink:
         self.gate = gate
         self.flushes = 0
         self.closed = False
+        self.entered = threading.Event()  # the writer is inside write()
 
     def write(self, frames):
         if self.gate is not None:
+            self.entered.set()
             self.gate.wait()
         if self.fail_after is not None and self.frames_written + len(frames) > self.fail_after:
             raise OSError(errno.ENOSPC, "No space left on device")
@@ -216,12 +218,13 @@ def test_full_queue_counts_dropped_frames_and_keeps_the_timeline():
     s = _session(sink, queue_seconds=0.01)  # capacity: the minimum of 8 blocks
     capacity = s._capacity_blocks
     block = np.full((256, 1), 0.25, np.float32)
+    s.callback(block, 256, None, _flags())
+    assert sink.entered.wait(5)  # the writer now holds that block, stuck on the disk
     n_blocks = capacity + 20
-    for _ in range(n_blocks):
+    for _ in range(n_blocks - 1):
         s.callback(block, 256, None, _flags())
-    # the writer holds one block, the queue `capacity`; the rest are dropped
-    assert s.dropped_frames >= (n_blocks - capacity - 1) * 256
-    assert s.dropped_frames > 0
+    # the queue holds `capacity` blocks; the rest are dropped and counted
+    assert s.dropped_frames == (n_blocks - 1 - capacity) * 256
     gate.set()
     s.callback(block, 256, None, _flags())  # next block after the gap
     res = s.finish()
