@@ -443,12 +443,17 @@ def show_history(
     from rich.console import Console
     from rich.markup import escape
     from rich.table import Table
+    from sqlalchemy.exc import SQLAlchemyError
 
-    from popmeter.history import History
+    from popmeter.history import History, HistoryError
 
     con = console or Console()
     with History(db, default_path="history.sqlite", create=False) as history:
-        stored = history.metric_names()
+        try:
+            stored = history.metric_names()
+        except SQLAlchemyError as error:
+            raise HistoryError(f"{history.display_url}: cannot read ({error.__class__.__name__}: "
+                               f"{str(error).splitlines()[0]})") from None
         if metric is not None:
             if metric not in SUMMARY_KEYS:
                 raise UsageError(f"--metric {metric}: unknown metric (known: {', '.join(SUMMARY_KEYS)})")

@@ -265,7 +265,7 @@ class History:
             raise UsageError(f"{self.display_url}: unsupported database")
         self.schema = schema
         try:
-            self._migrate(schema)
+            self._migrate(schema, create=create)
         except sa.exc.OperationalError as error:
             raise HistoryError(f"{self.display_url}: cannot open ({_first_line(error)})") from None
         # hold no connection between uses: batch workers are forked from this
@@ -274,14 +274,25 @@ class History:
 
     # -- schema ---------------------------------------------------------------
 
-    def _migrate(self, schema: str | None) -> None:
+    def _migrate(self, schema: str | None, *, create: bool) -> None:
         with self.engine.begin() as conn:
             if self.dialect == "postgresql":
                 conn.execute(sa.text("SELECT pg_advisory_xact_lock(:k)"), {"k": _PG_LOCK_KEY})
-                if schema is not None:
+                if schema is not None and create:
                     conn.execute(sa.text(f'CREATE SCHEMA IF NOT EXISTS "{_ident(schema)}"'))
-            schema_version.create(conn, checkfirst=True)
+            if not sa.inspect(conn).has_table("schema_version"):
+                if not create:
+                    raise HistoryError(
+                        f"{self.display_url}: not a popmeter history database (no schema_version "
+                        "table; run `popmeter batch` with this --db first)"
+                    )
+                schema_version.create(conn)
             current = self._version(conn)
+            if current > SCHEMA_VERSION:
+                raise HistoryError(
+                    f"{self.display_url}: history schema version {current} is newer than this "
+                    f"popmeter understands ({SCHEMA_VERSION}); update popmeter"
+                )
             for version in range(current, SCHEMA_VERSION):
                 MIGRATIONS[version](conn)
                 conn.execute(schema_version.insert().values(version=version + 1, applied_at=_now()))

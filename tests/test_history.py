@@ -235,6 +235,25 @@ def test_missing_sqlite_file_is_a_clear_error(tmp_path):
     assert not (tmp_path / "none.sqlite").exists()
     with pytest.raises(HistoryError, match="does not exist"):
         History(tmp_path / "no" / "such" / "dir.sqlite")
+    # a reading command never turns some other SQLite file into a history
+    import sqlite3
+
+    other = tmp_path / "other.sqlite"
+    with sqlite3.connect(other) as conn:
+        conn.execute("create table notes (x text)")
+    with pytest.raises(HistoryError, match="not a popmeter history database"):
+        History(other, create=False)
+    with sqlite3.connect(other) as conn:
+        tables = [r[0] for r in conn.execute("select name from sqlite_master where type='table'")]
+    assert tables == ["notes"]
+
+
+def test_newer_schema_is_refused(tmp_path):
+    db = tmp_path / "h.sqlite"
+    with History(db) as h, h.engine.begin() as conn:
+        conn.execute(schema_version.insert().values(version=SCHEMA_VERSION + 1, applied_at="x"))
+    with pytest.raises(HistoryError, match="newer than this popmeter"):
+        History(db)
 
 
 @pytest.mark.postgres
