@@ -368,3 +368,31 @@ def test_end_to_end_with_the_real_pipeline(tmp_path):
     assert 'href="units/KW-1/index.html"' in (out / "index.html").read_text()
     analysis = json.loads((out / "units" / "KW-1" / "analysis.json").read_text())
     assert analysis["schema"] == "popmeter.analysis/1"
+
+
+def _station(src, out, db, barrier):
+    barrier.wait(timeout=60)
+    _run(src, out, db=db, jobs=1)
+
+
+def test_two_stations_write_one_history_at_once(tmp_path):
+    # two stations run their batches at the same moment into one database
+    import multiprocessing
+
+    db = tmp_path / "line.sqlite"
+    ctx = multiprocessing.get_context("fork" if hasattr(os, "fork") else "spawn")
+    barrier = ctx.Barrier(2)
+    procs = []
+    for name in ("tankA", "tankB"):
+        units = {f"{name}-{k:02d}": (_good(steady_rate_hz=12.0 + 0.01 * k),) for k in range(12)}
+        src = _write_folder(tmp_path / name, units)
+        procs.append(ctx.Process(target=_station, args=(src, tmp_path / f"out-{name}", db, barrier)))
+    for p in procs:
+        p.start()
+    for p in procs:
+        p.join(timeout=300)
+    assert [p.exitcode for p in procs] == [0, 0]
+    with History(db, create=False) as h:
+        assert sorted(h.batch_ids()) == ["tankA", "tankB"]
+        assert len(h.units_of("tankA")) == len(h.units_of("tankB")) == 12
+        assert len(h.series("steady_rate_hz")) == 24
