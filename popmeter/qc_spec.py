@@ -31,7 +31,8 @@ from typing import Any, Literal
 from popmeter.errors import SpecError
 
 #: The summary metrics a spec may limit (the ``summary`` keys of the
-#: ``popmeter.analysis/1`` JSON document), in the order reports list them.
+#: ``popmeter.analysis/1`` JSON document, including ``steady_rate_sem_hz``
+#: which the README documents beyond the required set), in report order.
 SUMMARY_KEYS: tuple[str, ...] = (
     "first_click_s",
     "last_click_s",
@@ -39,6 +40,7 @@ SUMMARY_KEYS: tuple[str, ...] = (
     "steady_end_s",
     "steady_rate_hz",
     "steady_rate_iqr_hz",
+    "steady_rate_sem_hz",
     "jitter_pct",
     "drift_pct_per_min",
     "stalls",

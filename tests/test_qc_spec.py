@@ -161,10 +161,33 @@ def test_error_verdict():
 
 
 def test_summary_keys_match_the_documented_json_schema():
-    # interfaces.md, JSON output of `analyze`: the summary keys
-    assert set(SUMMARY_KEYS) == {
+    # interfaces.md, JSON output of `analyze`: the required summary keys, plus
+    # steady_rate_sem_hz which the README's summary table adds
+    required = {
         "first_click_s", "last_click_s", "steady_start_s", "steady_end_s",
         "steady_rate_hz", "steady_rate_iqr_hz", "jitter_pct", "drift_pct_per_min",
         "stalls", "cycles", "run_s", "time_to_steady_s", "ignition_delay_s",
         "ring_hz", "diaphragm_stiffness_kpa_per_ml",
     }
+    assert set(SUMMARY_KEYS) == required | {"steady_rate_sem_hz"}
+    assert len(SUMMARY_KEYS) == len(set(SUMMARY_KEYS))
+
+
+def test_summary_keys_cover_what_the_pipeline_produces():
+    # every key the real pipeline puts in a summary can be limited and
+    # appears in results.csv
+    np = pytest.importorskip("numpy")
+    timeline = pytest.importorskip("popmeter.timeline")
+    detection = pytest.importorskip("popmeter.detection")
+    fs = 22050
+    t = np.arange(int(6 * fs)) / fs
+    signal = np.zeros_like(t, dtype=np.float32)
+    for start in np.arange(1.0, 5.0, 1 / 12.0):
+        i = int(start * fs)
+        n = int(0.01 * fs)
+        signal[i:i + n] += (0.5 * np.exp(-np.arange(n) / (0.002 * fs))
+                            * np.sin(2 * np.pi * 1500 * np.arange(n) / fs)).astype(np.float32)
+    det = detection.detect_clicks(signal, fs)
+    tl = timeline.build_timeline(det.clicks, duration_s=6.0, clicks_per_cycle=det.clicks_per_cycle)
+    produced = set(tl.summary) | {"diaphragm_stiffness_kpa_per_ml"}
+    assert produced <= set(SUMMARY_KEYS), produced - set(SUMMARY_KEYS)
