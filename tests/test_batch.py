@@ -358,7 +358,8 @@ def test_end_to_end_with_the_real_pipeline(tmp_path):
     result = run_batch(src, spec=spec, boat=boat, out_dir=out, jobs=2, progress=False)
     got = {u.serial: u for u in result.units}
     assert {s: u.status for s, u in got.items()} == {
-        "KW-1": "PASS", "KW-2": "FAIL", "KW-3": "FAIL", "KW-4": "ERROR"}
+        "KW-1": "PASS", "KW-2": "FAIL", "KW-3": "FAIL", "KW-4": "ERROR",
+    }, {s: u.verdict.reasons for s, u in got.items()}
     assert any(r.startswith("diaphragm_stiffness_kpa_per_ml = ") and "below min 105" in r
                for r in got["KW-2"].verdict.reasons)
     assert "steady_rate_hz: no value (could not be determined)" in got["KW-3"].verdict.reasons
