@@ -744,7 +744,7 @@ class ClickDetector:
                 self.rejected += 1
                 self.rejected_times_s.append(onset / fs)
                 if (self.reject and ring is not None and f["attack_s"] <= self.max_attack_s
-                        and f["ring_snr_short_db"] >= self.min_ring_snr_db - 2.0
+                        and (c.strong or f["ring_snr_short_db"] >= self.min_ring_snr_db - 2.0)
                         and len(self._second_look) < 200000):
                     self._second_look.append(Click(
                         time_s=onset / fs, sample=onset,
@@ -1038,14 +1038,25 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     decided = clicks_per_cycle
     alt = _alternation(feats) if n >= 12 else 0.0
     sep, share, cl_labels = _bimodal(feats) if n >= 12 else (0.0, 0.0, np.zeros(n, int))
+    times = np.array([c.time_s for c in out])
+    phase, short = (_second_click_phase(times, feats[:, 0]) if n >= 12
+                    else (None, np.zeros(n, bool)))
     if decided is None:
-        decided = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)) else 1
+        decided = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)
+                        or phase is not None) else 1
     if decided == 1 or n < 2:
         for i, c in enumerate(out):
             c.kind = 0
             c.cycle = i
         return out, 1
-    labels = _two_families(out, feats) if alt < -0.5 or sep < 4.0 else cl_labels
+    if alt < -0.5:
+        labels = _two_families(out, feats)
+    elif sep >= 4.0 and share >= 0.15:
+        labels = cl_labels
+    elif phase is not None:
+        labels = short.astype(np.int64)  # a click a consistent fraction of a period late
+    else:
+        labels = _two_families(out, feats)
     cycle = -1
     for c, lab in zip(out, labels):
         c.kind = int(lab)
@@ -1099,6 +1110,46 @@ def _alternation(feats: np.ndarray) -> float:
         r1 = float(np.dot(r[1:], r[:-1])) / den
         best = min(best, r1)
     return best
+
+
+def _second_click_phase(times: np.ndarray, levels: np.ndarray
+                        ) -> tuple[float | None, np.ndarray]:
+    """Timing evidence of a second click: intervals a consistent fraction of the period.
+
+    Each interval is divided by the local period (the upper quartile of the
+    17 nearest intervals).  When the second clicks are found only now and
+    then, they show up as many intervals at one fraction (0.25-0.75) of the
+    period with little spread; stray extra clicks land anywhere.  (When they
+    are nearly all found, the alternation test of :func:`assign_kinds`
+    decides instead.)
+
+    Returns the fraction (None when there is no such evidence) and a mask of
+    the clicks that arrive at that fraction after the click before them.
+    """
+    n = times.size
+    gaps = np.diff(times)
+    mask = np.zeros(n, dtype=bool)
+    if gaps.size < 10:
+        return None, mask
+    # main-to-main period: the upper quartile of the nearby intervals (second
+    # clicks, found or not, only ever shorten intervals)
+    pad = np.pad(gaps, (8, 8), mode="edge")
+    period = np.percentile(np.lib.stride_tricks.sliding_window_view(pad, 17), 75, axis=1)
+    r = gaps / period
+    # level of each click against its two neighbours (dB): a second click is
+    # quieter than the main clicks around it; a click found after a missed
+    # one (which also lands mid-period) is not
+    lv = np.pad(levels, 1, mode="edge")
+    contrast = levels - 0.5 * (lv[:-2] + lv[2:])
+    sel = (r >= 0.25) & (r <= 0.75) & (contrast[1:] <= -3.0)
+    if sel.sum() < max(8, 0.08 * gaps.size):
+        return None, mask
+    q1, q2, q3 = np.percentile(r[sel], [25, 50, 75])
+    if q3 - q1 > 0.15:
+        return None, mask
+    # the click after a short interval, quieter than its neighbours, is the second one
+    mask[1:] = (np.abs(r - q2) <= 0.15) & (contrast[1:] <= -1.5)
+    return float(q2), mask
 
 
 def _bimodal(feats: np.ndarray) -> tuple[float, float, np.ndarray]:
