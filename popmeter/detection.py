@@ -3,59 +3,71 @@
 One :class:`ClickDetector` serves a whole file and a live stream: it is fed
 blocks of samples of any size, carries its state between them and returns the
 clicks it has finalised.  Given the same samples it gives the same clicks
-whatever the block size, and it keeps only a bounded history (about half a
-second of audio plus two seconds of onset envelope).
+whatever the block size (every decision is tied to fixed frame numbers, never
+to block edges), and it keeps only a bounded history (a fraction of a second
+of audio, two seconds of bin levels).
 
 The steps, and the published method each follows:
 
-1. **Band energies at a fine hop.**  The stream is low-passed (Butterworth,
-   ``scipy.signal.sosfilt`` with carried ``zi``) and decimated to about
-   24 kHz; a short-time Fourier transform (Hann window of 10.7 ms, hop 2 ms)
-   gives the power spectrum, summed into a fixed bank of overlapping
-   2/3-octave bands from 400 Hz up.  A fixed bank rather than a band learnt
-   from the first events keeps the streaming and whole-array output
-   identical: every band is watched from the first sample, and the band that
-   best shows the clicks is chosen per click (largest normalised rise).
-   ``band_hz`` forces a single band.
-2. **Onset envelope: log-energy rise** per band, ``L[t] - max(L[t-3],
-   L[t-4])`` in dB: the logarithmic spectral-flux family (Bello et al., "A
-   tutorial on onset detection in music signals", IEEE TSAP 2005; Dixon,
-   "Onset detection revisited", DAFx 2006), with the reference taken as a
-   maximum over earlier frames after Böck & Widmer, "Maximum filter
-   vibrato suppression for onset detection", DAFx 2013 (here a maximum over
-   time, which damps rises caused by noise dips).
-3. **Adaptive threshold from robust local statistics**: per band, the median
-   and the median absolute deviation (MAD x 1.4826 = sigma for Gaussian data;
-   Hampel 1974) of the rise over the preceding 2 s, refreshed every 0.25 s,
-   causal.  The detection function is the largest robust z-score over the
-   bands.  Nothing depends on the file's length.
-4. **Peak picking** with a refractory time ``1 / max_rate_hz``: a frame is a
-   candidate when its z-score passes ``threshold`` and is the largest within
-   plus or minus the refractory time (the max-filter peak picker of Böck,
-   Krebs & Schedl, ISMIR 2012, as in ``librosa.util.peak_pick``).
-5. **Sample-accurate onset** by the Akaike-information-criterion change-point
+1. **Fine time-frequency grid.**  The stream is decimated to about 24 kHz
+   (triangular FIR, carried history) and cut into Hann frames of 10.7 ms at
+   a hop of 2 ms; each frame's power spectrum gives one level per STFT bin
+   (dB re a full-scale sine) from 400 Hz to about 10 kHz.  Each bin is one
+   narrow detection channel: a plate ring lives in a bin or two, so watching
+   the bins separately keeps most of the noise out (the spectrum-analysis
+   view of energy-rise onset detection, Bello et al., "A tutorial on onset
+   detection in music signals", IEEE TSAP 2005, section III-B).
+2. **Onset envelope**: per bin, the level above the bin's running median
+   (the noise floor), kept only where the level also *rises* by
+   ``min_rise_db`` against the maximum of the frames 6-8 ms earlier (the
+   log spectral-flux rise of Dixon, "Onset detection revisited", DAFx 2006,
+   with the reference maximum-filtered in time after Böck & Widmer,
+   "Maximum filter vibrato suppression for onset detection", DAFx 2013), and
+   where it stands clear of the bin's robust spread (median absolute
+   deviation x 1.4826, Hampel 1974) and of the frame's window side lobes.
+   The detection function is the largest such value over the bins.
+3. **Adaptive threshold from robust local statistics**: median and MAD per
+   bin over the preceding 2 s, refreshed every 0.5 s, causal; nothing
+   depends on the file's length.  For Gaussian noise a periodogram bin is
+   exponentially distributed, so it passes its median by x dB with
+   probability exp(-ln 2 * 10^(x/10)) (Brockwell & Davis, "Time Series:
+   Theory and Methods", 1991, section 10.3): 13 dB (``threshold_db``) makes a
+   noise frame a candidate about once in 10^6 bins.
+4. **The band where the clicks live, learnt on the way**: every 1 s (fixed
+   frame numbers) the bins where the strong candidates rang are noted;
+   within those bins a lower threshold (``weak_threshold_db``, 8 dB) finds
+   the weaker clicks of startup and fade.  ``band_hz`` forces the band.
+5. **Peak picking** with a refractory time ``1 / max_rate_hz``: a frame is a
+   candidate when its value is the largest within plus or minus the
+   refractory time (the max-filter peak picker of Böck, Krebs & Schedl,
+   ISMIR 2012, as in ``librosa.util.peak_pick``).
+6. **Sample-accurate onset** by the Akaike-information-criterion change-point
    picker on the high-passed waveform around the candidate (Maeda 1985; the
-   two-segment form of Sleeman & van Eck, PEPI 1999, computed with cumulative
-   sums): the onset is the sample that best splits "noise before" from
-   "signal after".
-6. **Features** of each click: peak level (dBFS), strength (the robust
-   z-score of the onset envelope), ring frequency (largest peak of the
-   zero-padded spectrum of the ringing tail, refined by quadratic
+   two-segment form used by Sleeman & van Eck, PEPI 1999, computed with
+   cumulative sums): the onset is the sample that best splits "noise before"
+   from "signal after".
+7. **Features** of each click: peak level (dBFS), strength (the onset
+   envelope's height above the floor, dB), ring frequency (largest peak of
+   the zero-padded spectrum of the 24 ms tail, refined by quadratic
    interpolation of the log magnitude, Smith & Serra, "PARSHL", ICMC 1987),
-   decay time (1/e amplitude time from a straight-line fit of the tail's
-   level in dB against time: an exponential ring is a straight line there).
-7. **Rejection** of transients that are not clicks: a click reaches its peak
-   within ``max_attack_s`` of its onset, its tail is tonal (a spectral peak
-   standing ``min_tonality_db`` above the tail's median spectrum) and decays
-   roughly exponentially.  Matches (noise bursts), speech (slow syllable
-   envelopes) and splashes fail these.  The whole-recording functions add a
-   last pass, :func:`reject_atypical`, that drops clicks whose ring matches no
-   family of the recording's own clicks (a knock on the tank rings far lower).
+   decay time (1/e amplitude time from a least-squares line through the
+   ring's envelope in dB, the envelope from complex demodulation at the ring
+   frequency: an exponential ring is a straight line there).
+8. **Rejection** of transients that are not clicks: a click reaches its
+   envelope peak within ``max_attack_s``, its tail is tonal (the spectral
+   peak stands ``min_tonality_db`` above the median of its neighbourhood)
+   and rings clearly above what the same bins held just before the onset
+   (``min_ring_snr_db``).  Match strikes and splashes (noise), speech
+   (formants that were already there) fail.  The whole-recording functions
+   add :func:`reject_atypical` (drop clicks whose ring matches no family of
+   the recording's own clicks: a knock rings far lower) and a second look
+   that takes back rejected candidates ringing exactly like an accepted
+   family (short, bright second clicks).
 
 Latency of the streaming detector: a click is finalised once
-``max_latency_s`` of audio after its onset has arrived (about 45 ms at the
-defaults: the refractory look-ahead, the analysis frame and the 24 ms ring
-tail), plus the block in which those samples arrive.
+``max_latency_s`` of audio after its onset has arrived (47 ms at 48 kHz with
+the defaults: the 12.5 ms refractory look-ahead, the 10.7 ms frame and the
+24 ms ring tail), plus the block in which those samples arrive.
 """
 
 from __future__ import annotations
@@ -102,9 +114,9 @@ class Click:
         Peak absolute sample value within 5 ms of the onset, in dB re full
         scale (0 dBFS = 1.0).
     strength : float
-        Detection confidence: the robust z-score of the onset envelope at the
-        click (rise above the local median in local robust standard
-        deviations); the detection threshold is the smallest possible value.
+        Detection confidence: the height of the onset envelope at the click
+        above the bin's running median (dB); at least ``weak_threshold_db``,
+        20-30 dB for a clear click.
     ring_hz : float or None
         Dominant ring frequency of the ringing tail, in Hz; ``None`` if the
         tail held no clear peak.
@@ -185,19 +197,20 @@ class ClickDetector:
     sample_rate_hz : float
         Sample rate of the stream in Hz (8 kHz or more).
     band_hz : (float, float) or None
-        Force the detection band (Hz).  Default ``None``: watch a fixed bank
-        of 2/3-octave bands from 400 Hz to about 10 kHz and use, for each
-        click, the band where it stands out most.
+        Force the detection band (Hz).  Default ``None``: watch every STFT
+        bin from 400 Hz to about 10 kHz and learn where the clicks ring.
     max_rate_hz : float
         Highest plausible click rate (clicks per second); its inverse is the
         refractory time.  Default 80: engines run at up to about 20-30
         cycles per second, two clicks per cycle, with a margin (common
         practice, no source).
-    threshold : float
-        Detection threshold on the robust z-score of the onset envelope.
-        Default 9: chosen on generated recordings so that pink noise alone
-        gives well under one false candidate per minute over the bank
-        (common practice, no source).
+    threshold_db : float
+        Height of the onset envelope above a bin's running median (dB) that
+        makes a candidate in any bin.  Default 13 dB: about one noise bin in
+        a million passes (exponential periodogram, see the module notes).
+    weak_threshold_db : float
+        The same within the bins where the clicks so far rang; default 8 dB
+        (the search is narrower, so more of the weak clicks can be taken).
     min_rise_db : float
         Least band-energy rise (dB over about 6 ms) for a candidate; default
         6 dB keeps tiny rises in near-silence out.
@@ -209,8 +222,13 @@ class ClickDetector:
         default 3 ms (plate rings build up in a fraction of a millisecond,
         speech and splashes take tens).
     min_tonality_db : float
-        Least height of the tail's spectral peak above the tail's median
-        spectrum (dB); default 12 dB (noise bursts stay near 8-10 dB).
+        Least height of the tail's spectral peak above the median of the
+        spectrum within +-25 % of its frequency (dB); default 10 dB (on
+        generated recordings noise bursts stay near 4-9 dB, clicks at
+        15-20 dB).
+    min_ring_snr_db : float
+        Least energy ratio (dB) of the ring's bins in the 24 ms after the
+        onset to the same bins in the 24 ms before it; default 8 dB.
     reject : bool
         Apply the rejection tests (default True).  With False every
         candidate becomes a click.
