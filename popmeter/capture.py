@@ -135,6 +135,8 @@ def import_sounddevice() -> Any:
         raise DependencyError(
             f"the sounddevice package is missing ({exc}): pip install sounddevice"
         ) from None
+    if getattr(sounddevice, "_initialized", 1) == 0:  # released by an earlier listen()
+        sounddevice._initialize()
     return sounddevice
 
 
@@ -1090,6 +1092,18 @@ def _close_stream(sd: Any, stream: Any, *, abort: bool) -> str | None:
             stream.close()
         except Exception as exc:  # noqa: BLE001 - a device that is gone may refuse to stop
             errors.append(f"failed while stopping ({exc})")
+            return
+        # Release PortAudio now, while the device is surely still there:
+        # sounddevice would otherwise do it at interpreter exit, and a device
+        # (or JACK server) gone by then makes PortAudio abort the process,
+        # replacing listen's exit code. import_sounddevice() initialises it
+        # again if it is needed later in this process.
+        terminate = getattr(sd, "_terminate", None)
+        try:
+            while terminate is not None and getattr(sd, "_initialized", 0) > 0:
+                terminate()
+        except Exception:  # noqa: BLE001, S110 - nothing left to release
+            pass
 
     t = threading.Thread(target=work, name="popmeter-stream-close", daemon=True)
     t.start()
