@@ -978,17 +978,21 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
 
     A short, bright click (the second click of a two-click engine) often fails
     the tonality tests on its own, yet rings at the same frequency as dozens
-    of accepted clicks; a noise burst does not.  Families are ring
-    frequencies shared by at least 5 % of the accepted clicks (and 4 or
-    more); a candidate within ``tolerance`` (relative) of one, and not within
-    the refractory time of an accepted click, is promoted.
+    of other clicks; a noise burst does not.  Families are ring frequencies
+    (within ``tolerance``) shared by at least 8 clicks or candidates, and by
+    at least 5 % of the number of accepted clicks; a candidate within
+    ``tolerance`` (relative) of one, and not within the refractory time of an
+    accepted click, is promoted.  Nothing is promoted in a recording with
+    fewer than 8 accepted clicks.
     """
     rings = np.array([c.ring_hz for c in kept if c.ring_hz], dtype=float)
     if rings.size < 8:
         return []
-    lr = np.sort(np.log(rings))
+    # families from the accepted clicks and the candidates together: a second
+    # click that mostly failed the tests alone still forms a tight family
+    lr = np.sort(np.log(np.concatenate([rings, [c.ring_hz for c in pool]])))
     width = math.log1p(tolerance)
-    need = max(4, math.ceil(0.05 * rings.size))
+    need = max(8, math.ceil(0.05 * rings.size))
     # family centres: densest points (count within +-width) above the need
     lo = np.searchsorted(lr, lr - width)
     hi = np.searchsorted(lr, lr + width, side="right")
