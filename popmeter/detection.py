@@ -1283,6 +1283,14 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         kept, dropped = list(clicks), []
     rejected_times = sorted(list(rejected_times) + [c.time_s for c in dropped])
     rejected += len(dropped)
+    if atypical and len(kept) < 8:
+        # no engine to compare with: a lone transient must at least ring down
+        # exponentially (a measurable decay) to count as a click
+        lone = [c for c in kept if c.decay_s is None]
+        if lone:
+            kept = [c for c in kept if c.decay_s is not None]
+            rejected += len(lone)
+            rejected_times = sorted(rejected_times + [c.time_s for c in lone])
     if atypical and det._second_look:
         promoted = _second_look(kept, det._second_look,
                                 refractory_s=det._refr * det.hop / det.sample_rate_hz)
