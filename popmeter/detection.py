@@ -297,7 +297,7 @@ class ClickDetector:
 
         # watched frequency range: one STFT bin per detection channel
         freqs = np.fft.rfftfreq(self._n_fft, 1.0 / fs_d)
-        top = min(10000.0, 0.42 * fs_d)
+        top = min(8000.0, 0.42 * fs_d)
         if band_hz is not None:
             lo, hi = float(band_hz[0]), float(band_hz[1])
             if not (0 < lo < hi):
@@ -329,8 +329,8 @@ class ClickDetector:
         self._refr = max(1, round(fs / max_rate_hz / self.hop))  # frames
         self._pre = round(0.008 * fs)
         self._post = round(0.001 * fs)
-        self._tail = round(0.024 * fs)
-        self._nfft_ring = int(2 ** math.ceil(math.log2(1.5 * self._tail)))
+        self._tail = round(0.020 * fs)
+        self._nfft_ring = int(2 ** math.ceil(math.log2(self._tail)))
         self._tapers: dict[int, np.ndarray] = {}
         self._nfft_short = int(2 ** math.ceil(math.log2(1.5 * 0.006 * fs)))
         self._frame_span = self._n_fft * self._q
