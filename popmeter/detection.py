@@ -293,7 +293,7 @@ class ClickDetector:
         # 0.42 of the decimated rate, where it still passes 4 dB down
         box = np.ones(self._q)
         self._aa = (np.convolve(box, box) / self._q ** 2).astype(np.float64)
-        self._aa_hist = np.zeros(len(self._aa) - 1)
+        self._aa_hist = np.zeros(len(self._aa) - 1, dtype=np.float32)
 
         # watched frequency range: one STFT bin per detection channel
         freqs = np.fft.rfftfreq(self._n_fft, 1.0 / fs_d)
@@ -418,7 +418,7 @@ class ClickDetector:
         """
         if self._flushed:
             raise UsageError("ClickDetector.process called after flush()")
-        x = np.asarray(block, dtype=np.float64).reshape(-1)
+        x = np.asarray(block, dtype=np.float32).reshape(-1)
         if x.size == 0:
             return []
         if not np.all(np.isfinite(x)):
@@ -426,22 +426,23 @@ class ClickDetector:
         self.clipped_samples += int(np.count_nonzero(np.abs(x) >= 0.9999))
         start = self.samples_seen
         self.samples_seen += x.size
-        self._x = np.concatenate([self._x, x.astype(np.float32)])
+        self._x = np.concatenate([self._x, x])
         # decimate: FIR with carried history, keep samples whose index is a multiple of q
         if self._q > 1:
             q = self._q
-            ext = np.concatenate([self._aa_hist, x])
-            self._aa_hist = ext[len(ext) - (len(self._aa) - 1):]
-            first = (-start) % q  # offset in x of the first kept sample
-            idx = np.arange(first, x.size, q)
-            # output sample at input index i: sum_j h[j] x[i - j] (causal FIR)
             taps = len(self._aa)
-            acc = np.zeros(idx.size)
+            ext = np.concatenate([self._aa_hist, x])
+            self._aa_hist = ext[len(ext) - (taps - 1):]
+            first = (-start) % q  # offset in x of the first kept sample
+            count = (x.size - first + q - 1) // q
+            # output at input index i: sum_j h[j] x[i - j] (causal FIR); in ext,
+            # input index i sits at i + taps - 1
+            dec = np.zeros(count, dtype=np.float32)
             for j in range(taps):
-                acc += self._aa[j] * ext[idx + (taps - 1) - j]
-            dec = acc.astype(np.float32)
+                lo = first + taps - 1 - j
+                dec += np.float32(self._aa[j]) * ext[lo:lo + (count - 1) * q + 1:q]
         else:
-            dec = x.astype(np.float32)
+            dec = x
         self._d = np.concatenate([self._d, dec])
         self._n_dec += dec.size
         self._analyse(final=False)
