@@ -186,7 +186,10 @@ t0 = time.perf_counter()
 with open_stream(sys.argv[1]) as s:
     r = detect_clicks_in_blocks(s, int(s.info.sample_rate_hz))
 el = time.perf_counter() - t0
-print(len(r.clicks), el, resource.getrusage(resource.RUSAGE_SELF).ru_maxrss)
+# VmHWM: peak resident set of this process image.  (ru_maxrss is not used: on
+# Linux it keeps the parent's resident size from before exec.)
+hwm = [ln.split()[1] for ln in open("/proc/self/status") if ln.startswith("VmHWM")][0]
+print(len(r.clicks), el, hwm)
 """
 
 
@@ -204,11 +207,11 @@ def memory(tmp: str, hours: float) -> None:
     size_mb = os.path.getsize(path) / 1e6
     out = subprocess.run([sys.executable, "-c", _MEM_CHILD, path], capture_output=True,
                          text=True, check=True)
-    n, el, rss_kb = out.stdout.split()
+    n, el, rss_kb = out.stdout.split()[-3:]
     dur = n_min * 60.0
     print(f"\n== memory: {n_min} min ({size_mb:.0f} MB WAV) analysed in a subprocess ==")
     print(f"clicks {n}, time {float(el):.1f} s ({dur / float(el):.0f}x real time), "
-          f"peak RSS {int(rss_kb) / 1024:.0f} MB")
+          f"peak RSS (VmHWM) {int(rss_kb) / 1024:.0f} MB")
 
 
 def main() -> None:
