@@ -89,6 +89,7 @@ __all__ = [
     "assign_kinds",
     "detect_clicks",
     "detect_clicks_in_blocks",
+    "finish_detection",
     "reject_atypical",
 ]
 
@@ -1317,6 +1318,36 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
                            band_hz=(float(band[0]), float(band[1])), ring_hz=ring,
                            warnings=warnings, rejected_times_s=rejected_times,
                            duration_s=duration_s, clipped_samples=det.clipped_samples)
+
+
+def finish_detection(detector: ClickDetector, clicks: list[Click], *,
+                     clicks_per_cycle: int | None = None) -> DetectionResult:
+    """The whole-recording passes on the clicks a detector has returned so far.
+
+    What :func:`detect_clicks_in_blocks` does after the last block: clicks that
+    ring like no family of the recording's clicks are set aside
+    (:func:`reject_atypical`), rejected candidates that ring like a family
+    are taken back, a lone transient without an exponential decay is
+    dropped, and one or two clicks per cycle is decided
+    (:func:`assign_kinds`).  Live capture calls this on the stream so far
+    (it does not change the detector).
+
+    Parameters
+    ----------
+    detector : ClickDetector
+        The detector that produced ``clicks``.
+    clicks : list of Click
+        Everything its ``process``/``flush`` calls returned, in order.
+    clicks_per_cycle : int or None
+        Force 1 or 2; default ``None`` decides.
+
+    Returns
+    -------
+    DetectionResult
+    """
+    return _result(list(clicks), detector.rejected, list(detector.rejected_times_s), detector,
+                   clicks_per_cycle=clicks_per_cycle,
+                   duration_s=detector.samples_seen / detector.sample_rate_hz)
 
 
 def detect_clicks_in_blocks(
