@@ -19,6 +19,12 @@ kill measurements run on a real clock). Prints:
    the file must open, match the source sample for sample, and lose at most
    the last second: lost = samples played before the kill - samples in the file.
    Without jackd it uses a subprocess that paces blocks into a CaptureSession.
+4. **Live vs offline clicks** on the bundled synthetic recordings: the live
+   click list at the end of the capture (streaming detector on 512-frame
+   blocks, plus the detection module's whole-run passes run as the capture
+   goes) and the streaming clicks alone, against the clicks of
+   ``analyze_file`` on the saved recording, matched within 1 ms. The issue
+   asks for >= 98 %.
 """
 
 from __future__ import annotations
@@ -211,12 +217,46 @@ def _sigkill_paced(tmp: Path, src: np.ndarray, kill_after_s: list[float]) -> Non
     _print_kill(rows, "paced CaptureSession subprocess")
 
 
+def agreement(tmp: Path) -> None:
+    """Live clicks (streaming, 512-frame blocks) against the offline analysis of the saved file."""
+    from popmeter.analysis import analyze_file
+
+    print("4. Live clicks vs the offline analysis of the saved file (within 1 ms)")
+    print("   recording            clicks       offline  live  offline found live  "
+          "live not offline")
+    for name in ("clean_run.flac", "noisy_run.flac", "two_click_run.flac"):
+        src = ROOT / "synthetic_audio" / name
+        x, rate = sf.read(src, dtype="float32", always_2d=True)
+        out = tmp / (src.stem + ".wav")
+        session = CaptureSession(sink=WavSink(out, rate, x.shape[1]), sample_rate_hz=rate,
+                                 channels=x.shape[1])
+        session.start()
+        for i in range(0, len(x), BLOCK):
+            b = x[i:i + BLOCK]
+            session.callback(b, len(b), None, None)
+            while session._queue.qsize() > session._capacity_blocks // 2:
+                time.sleep(0.0005)
+        res = session.finish()
+        off = np.array([c.time_s for c in analyze_file(out, channel=0).detection.clicks])
+        for label, clicks in (("live list", res.clicks), ("stream only", res.live_clicks)):
+            live = np.array([c.time_s for c in clicks])
+            found = sum(bool(len(live) and np.min(np.abs(live - t)) <= 1e-3) for t in off)
+            extra = sum(bool(len(off) == 0 or np.min(np.abs(off - t)) > 1e-3) for t in live)
+            share = 100 * found / max(len(off), 1)
+            print(f"   {name:<20} {label:<12} {len(off):7d} {len(live):5d} {found:6d} "
+                  f"({share:5.1f} %) {extra:8d}")
+        print(f"   {'':<20} whole-run passes: {len(session.pass_seconds)}, median "
+              f"{1000 * np.median(session.pass_seconds):.1f} ms, max "
+              f"{1000 * max(session.pass_seconds):.1f} ms")
+
+
 def main() -> None:
     with tempfile.TemporaryDirectory() as d:
         tmp = Path(d)
         throughput(tmp)
         latency(tmp)
         sigkill(tmp)
+        agreement(tmp)
 
 
 if __name__ == "__main__":

@@ -18,6 +18,15 @@ capture ends (silence after the run, ``--max-seconds``, Ctrl-C, a fault) it
 finalises the file and runs the offline analysis on it, the same as
 ``popmeter analyze``.
 
+The live click list is the streaming detector's clicks, completed about once
+a second by the detection module's whole-recording passes on the run so far
+(a second look at rejected candidates that ring like a family of clicks, the
+atypical-click filter, one or two clicks per cycle): the same code the
+offline analysis runs after the last block, so at the end of a capture the
+live list is the offline one. Clicks the streaming detector accepts reach the
+live state about 40 ms after their onset; clicks promoted by a pass, at the
+next pass.
+
 Every duration that ends a capture (the silence timeout, ``max_seconds``)
 counts audio time: frames received divided by the sample rate, never the wall
 clock. The wall clock is only used for flushing the file, redrawing the view,
@@ -71,6 +80,12 @@ FLUSH_INTERVAL_S = 0.5
 #: (s). A working stream calls back every few milliseconds; two seconds is far
 #: beyond any scheduling hiccup (common practice, no source).
 DEVICE_SILENT_TIMEOUT_S = 2.0
+
+#: Audio between two whole-run passes on the live clicks (s), and the largest
+#: share of the analysis thread's time they may take (a slow pass on a long
+#: run is spaced out accordingly).
+PASS_EVERY_S = 1.0
+PASS_CPU_SHARE = 0.05
 
 #: Most audio the writer thread writes in one call when it has fallen behind
 #: (s); a full disk then loses at most this much of what was queued.
@@ -369,8 +384,9 @@ class CaptureResult:
     channels: int
     stop_reason: str | None
     faults: list[str]
-    clicks: list[Any]  # detector Click objects, in time order
-    live_clicks: list[LiveClick]
+    clicks: list[Any]  # the live click list at the end (after the last whole-run pass)
+    live_clicks: list[LiveClick]  # every click as the streaming detector gave it, when
+    clicks_per_cycle: int | None = None  # the last pass's decision (None: no passes)
 
     @property
     def written_s(self) -> float:
@@ -382,21 +398,18 @@ class _RateTracker:
 
     The final figures come from the offline timeline. Here the cycle period is
     the median over the last 8 cycles of ``t[i] - t[i - clicks_per_cycle]``
-    (so a two-click engine shows its cycle rate, not twice it); one or two
-    clicks per cycle is decided with :func:`popmeter.detection.assign_kinds`
-    on all clicks so far (at most the last 400), as the offline analysis does
-    on the whole run, refreshed every 8 clicks from the 64th on: on fewer
-    clicks (an irregular startup) the decision flips, so one click per cycle
-    is shown until then. A gap longer than 4 click
-    intervals that ends with a new click counts as a stall. Phases from the
-    trend of the rate: rising by over 5 % is startup, falling by over 8 % after
-    steady running is fade, an interquartile spread under 8 % is steady
-    (common practice, no source).
+    (so a two-click engine shows its cycle rate, not twice it). One or two
+    clicks per cycle comes from the detection module's decision on the run so
+    far (:meth:`rebase`, after each whole-run pass), used from the 64th click
+    on: on fewer clicks (an irregular startup) the decision flips, so one
+    click per cycle is shown until then. A gap longer than 4 click intervals
+    that ends with a new click counts as a stall. Phases from the trend of the
+    rate: rising by over 5 % is startup, falling by over 8 % after steady
+    running is fade, an interquartile spread under 8 % is steady (common
+    practice, no source).
     """
 
-    def __init__(self, *, clicks_per_cycle: int | None = None,
-                 kinds: Callable[..., Any] | None = None) -> None:
-        self.recent: list[Any] = []
+    def __init__(self, *, clicks_per_cycle: int | None = None) -> None:
         self.times: list[float] = []
         self.trace: list[float] = []
         self.stalls = 0
@@ -404,20 +417,25 @@ class _RateTracker:
         self.rate_hz: float | None = None
         self.fixed_cpc = clicks_per_cycle
         self.clicks_per_cycle = clicks_per_cycle or 1
-        self._kinds = kinds
-        self._since_kinds = 0
 
-    def add(self, click: Any, time_s: float) -> None:
+    def add(self, time_s: float) -> None:
+        """A click just found by the streaming detector."""
         interval = self._click_interval()
         if self.times and interval is not None and time_s - self.times[-1] > 4.0 * interval:
             self.stalls += 1
         self.times.append(time_s)
-        self.recent.append(click)
         if len(self.times) > 64:
             del self.times[:-64]
-        if len(self.recent) > 400:
-            del self.recent[:-400]
-        self._decide_cpc()
+        self._update_rate()
+
+    def rebase(self, times_s: list[float], *, clicks_per_cycle: int, total_clicks: int) -> None:
+        """After a whole-run pass: the last clicks of the current list and its decision."""
+        self.times = list(times_s[-64:])
+        if self.fixed_cpc is None:
+            self.clicks_per_cycle = int(clicks_per_cycle) if total_clicks >= 64 else 1
+        self._update_rate()
+
+    def _update_rate(self) -> None:
         period = self._period()
         if period:
             self.rate_hz = 1.0 / period
@@ -425,22 +443,6 @@ class _RateTracker:
             if len(self.trace) > RATE_TRACE_LEN:
                 del self.trace[:-RATE_TRACE_LEN]
         self._update_phase()
-
-    def _decide_cpc(self) -> None:
-        self._since_kinds += 1
-        if self.fixed_cpc is not None or len(self.recent) < 64 or self._since_kinds < 8:
-            return
-        self._since_kinds = 0
-        if self._kinds is None:
-            from popmeter.detection import assign_kinds
-
-            self._kinds = assign_kinds
-        try:
-            _, self.clicks_per_cycle = self._kinds(self.recent)
-        except (AttributeError, TypeError, ValueError):
-            # clicks without the features assign_kinds needs (a stand-in
-            # detector): keep one click per cycle; the display only.
-            self.fixed_cpc = self.clicks_per_cycle
 
     def _period(self) -> float | None:
         k = self.clicks_per_cycle
@@ -508,8 +510,17 @@ class CaptureSession:
         Once the first click has been heard, stop when no click has come for
         this much audio (s). Default None: no automatic stop.
     clicks_per_cycle : {1, 2}, optional
-        For the live rate display only; default None decides from the clicks
-        (:func:`popmeter.detection.assign_kinds`).
+        For the live rate display only; default None takes the detection
+        module's decision on the run so far.
+    whole_run_passes : callable ``(detector, clicks) -> DetectionResult``, None or "auto"
+        The passes that the offline analysis runs once the whole file is read
+        (rejection of atypical clicks, second look at rejected candidates
+        that ring like a family of clicks, clicks per cycle). Run on the
+        clicks so far about once a second of audio (less often when a pass
+        gets slow: never more than 5 % of the time) and once more at the end,
+        so the live click list converges on the offline one. "auto" (the
+        default): :func:`detection_passes` for a
+        ``popmeter.detection.ClickDetector``, none for anything else.
     queue_seconds : float
         Capacity of the bounded queue in seconds of audio (default
         :data:`QUEUE_SECONDS`).
@@ -531,6 +542,7 @@ class CaptureSession:
         max_seconds: float | None = None,
         silence_stop_s: float | None = None,
         clicks_per_cycle: int | None = None,
+        whole_run_passes: Any = "auto",
         queue_seconds: float = QUEUE_SECONDS,
         flush_interval_s: float = FLUSH_INTERVAL_S,
         clock: Callable[[], float] = _time.monotonic,
@@ -546,6 +558,15 @@ class CaptureSession:
 
             detector = ClickDetector(self.sample_rate_hz)
         self.detector = detector
+        if isinstance(whole_run_passes, str) and whole_run_passes == "auto":
+            from popmeter.detection import ClickDetector
+
+            whole_run_passes = detection_passes if isinstance(detector, ClickDetector) else None
+        self._passes = whole_run_passes
+        self._pass_result: Any = None
+        self._pass_upto = 0  # streaming clicks covered by the last pass
+        self._next_pass_frames = 0
+        self.pass_seconds: list[float] = []  # wall time of each pass (s)
         self.max_frames = (
             None if max_seconds is None else round(max_seconds * self.sample_rate_hz)
         )
@@ -752,9 +773,11 @@ class CaptureSession:
                     with self._lock:
                         self.frames_analysed += x.shape[0]
                     self._add_clicks(found)
+                    self._maybe_pass(final=False)
                     self._check_silence()
                 if done:
                     self._add_clicks(self.detector.flush())
+                    self._maybe_pass(final=True)
             except Exception as exc:  # noqa: BLE001
                 self._analysis_fault(exc)
                 # keep draining so the writer never blocks; recording continues
@@ -796,17 +819,61 @@ class CaptureSession:
                                                   level_dbfs=float(getattr(c, "level_dbfs", math.nan)),
                                                   seen_wall_s=now,
                                                   frames_received=self.frames_received))
-                self._rate.add(c, time_s)
+                self._rate.add(time_s)
+
+    def _maybe_pass(self, *, final: bool) -> None:
+        if self._passes is None or not self.clicks:
+            return
+        if not final and self.frames_analysed < self._next_pass_frames:
+            return
+        t0 = _time.perf_counter()
+        result = self._passes(self.detector, list(self.clicks))
+        cost_s = _time.perf_counter() - t0
+        self.pass_seconds.append(cost_s)
+        interval_s = max(PASS_EVERY_S, cost_s / PASS_CPU_SHARE)
+        self._next_pass_frames = self.frames_analysed + int(interval_s * self.sample_rate_hz)
+        with self._lock:
+            self._pass_result = result
+            self._pass_upto = len(self.clicks)
+            self._rate.rebase([c.time_s for c in result.clicks],
+                              clicks_per_cycle=result.clicks_per_cycle,
+                              total_clicks=len(result.clicks))
+
+    def _current_clicks(self) -> list[Any]:
+        """The live click list: the last whole-run pass, then the streaming clicks since
+        (call with the lock held)."""
+        if self._pass_result is None:
+            return list(self.clicks)
+        return list(self._pass_result.clicks) + self.clicks[self._pass_upto:]
+
+    def _last_click_s(self) -> float | None:
+        last = self.clicks[-1].time_s if self.clicks else None
+        if self._pass_result is not None and self._pass_result.clicks:
+            passed = self._pass_result.clicks[-1].time_s
+            last = passed if last is None else max(last, passed)
+        return last
 
     def _check_silence(self) -> None:
         now_s = self.frames_analysed / self.sample_rate_hz
         with self._lock:
             self._rate.silent_for(now_s)
-            last = self.live_clicks[-1].time_s if self.live_clicks else None
+            last = self._last_click_s()
         if self.silence_stop_s is not None and last is not None and now_s - last >= self.silence_stop_s:
             self.request_stop(f"no click for {self.silence_stop_s:g} s of audio after the run")
 
     # -- results ---------------------------------------------------------------------
+
+    def _click_count(self) -> int:
+        if self._pass_result is None:
+            return len(self.clicks)
+        return len(self._pass_result.clicks) + len(self.clicks) - self._pass_upto
+
+    def _first_click_s(self) -> float | None:
+        first = self.clicks[0].time_s if self.clicks else None
+        if self._pass_result is not None and self._pass_result.clicks:
+            passed = self._pass_result.clicks[0].time_s
+            first = passed if first is None else min(first, passed)
+        return first
 
     def snapshot(self) -> LiveState:
         """A consistent copy of the live state (cheap; called by the view a few times a second)."""
@@ -828,9 +895,9 @@ class CaptureSession:
                 clipped_blocks=self._clipped_blocks,
                 clipping_now=recent_clip,
                 too_quiet=self._quiet_frames >= sr,
-                clicks=len(self.live_clicks),
-                first_click_s=self.live_clicks[0].time_s if self.live_clicks else None,
-                last_click_s=self.live_clicks[-1].time_s if self.live_clicks else None,
+                clicks=self._click_count(),
+                first_click_s=self._first_click_s(),
+                last_click_s=self._last_click_s(),
                 rate_hz=self._rate.rate_hz,
                 clicks_per_cycle=self._rate.clicks_per_cycle,
                 rate_trace_hz=list(self._rate.trace),
@@ -880,12 +947,32 @@ class CaptureSession:
             channels=self.channels,
             stop_reason=self.stop_reason,
             faults=list(self.faults),
-            clicks=list(self.clicks),
+            clicks=self._current_clicks(),
             live_clicks=list(self.live_clicks),
+            clicks_per_cycle=(self._pass_result.clicks_per_cycle
+                              if self._pass_result is not None else None),
         )
 
 
 # --- listen -----------------------------------------------------------------------
+
+
+def detection_passes(detector: Any, clicks: list[Any]) -> Any:
+    """The detection module's whole-recording passes on the clicks of a stream so far.
+
+    What ``popmeter.detection.detect_clicks_in_blocks`` does after the last
+    block (atypical clicks set aside, a second look at rejected candidates
+    that ring like a family of clicks, one or two clicks per cycle), run on
+    the live ClickDetector's state: the same code, so that the live click
+    list becomes the offline one. Returns a ``DetectionResult``.
+    """
+    from popmeter import detection
+
+    # The passes are not public API of popmeter.detection yet (its private
+    # _result); tests/test_capture.py fails loudly if the name changes.
+    return detection._result(
+        clicks, detector.rejected, detector.rejected_times_s, detector,
+        clicks_per_cycle=None, duration_s=detector.samples_seen / detector.sample_rate_hz)
 
 
 def choose_sample_rate(sd: Any, device: InputDevice, channels: int,
@@ -935,9 +1022,18 @@ def write_live_sidecar(path: str | os.PathLike[str], result: CaptureResult, *,
         "input_overflows": result.overflows,
         "stop_reason": result.stop_reason,
         "faults": result.faults,
+        "clicks_per_cycle": result.clicks_per_cycle,
+        # the live click list at the end of the capture
         "clicks": [
-            {"sample": c.sample, "time_s": c.time_s,
-             "level_dbfs": c.level_dbfs if math.isfinite(c.level_dbfs) else None}
+            {"sample": int(c.sample), "time_s": float(c.time_s),
+             "level_dbfs": _finite(getattr(c, "level_dbfs", None)),
+             "kind": getattr(c, "kind", 0), "cycle": getattr(c, "cycle", None)}
+            for c in result.clicks
+        ],
+        # every click as the streaming detector reported it, and how much
+        # audio had arrived by then (frames): the detection latency
+        "stream_clicks": [
+            {"sample": c.sample, "time_s": c.time_s, "frames_received": c.frames_received}
             for c in result.live_clicks
         ],
     }
@@ -946,6 +1042,13 @@ def write_live_sidecar(path: str | os.PathLike[str], result: CaptureResult, *,
     tmp.write_text(json.dumps(doc, indent=1) + "\n", encoding="utf-8")
     os.replace(tmp, path)
     return path
+
+
+def _finite(x: Any) -> float | None:
+    if x is None:
+        return None
+    f = float(x)
+    return f if math.isfinite(f) else None
 
 
 def sidecar_path(out: str | os.PathLike[str]) -> Path:

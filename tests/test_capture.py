@@ -540,38 +540,61 @@ def test_caution_line_names_flame_steam_children_and_mains():
 
 
 def test_live_rate_is_the_cycle_rate_for_one_and_two_click_engines():
-    from popmeter.detection import Click
-
-    def engine(clicks_per_cycle):
-        rng = np.random.default_rng(clicks_per_cycle)  # small click-to-click variation
-        out = []
-        for k in range(80):  # 10 cycles per second
-            t = 0.5 + 0.1 * k + rng.normal(0, 2e-4)
-            out.append(Click(time_s=t, sample=round(t * SR), level_dbfs=-10 + rng.normal(0, 1),
-                             strength=20.0, ring_hz=3000 * (1 + rng.normal(0, 0.01)),
-                             decay_s=0.004 * (1 + rng.normal(0, 0.05))))
-            if clicks_per_cycle == 2:  # weaker, higher, shorter second click 30 ms later
-                t2 = t + 0.03 + rng.normal(0, 2e-4)
-                out.append(Click(time_s=t2, sample=round(t2 * SR),
-                                 level_dbfs=-22 + rng.normal(0, 1), strength=12.0,
-                                 ring_hz=4500 * (1 + rng.normal(0, 0.01)),
-                                 decay_s=0.002 * (1 + rng.normal(0, 0.05))))
-        return out
-
+    rng = np.random.default_rng(5)
     for cpc in (1, 2):
+        times = []
+        for k in range(80):  # 10 cycles per second; a second click 30 ms after the first
+            t = 0.5 + 0.1 * k + rng.normal(0, 2e-4)
+            times.append(t)
+            if cpc == 2:
+                times.append(t + 0.03 + rng.normal(0, 2e-4))
         tracker = capture._RateTracker()
-        for c in engine(cpc):
-            tracker.add(c, c.time_s)
+        for t in times[:70]:
+            tracker.add(t)
+        # as the whole-run pass reports it: the clicks so far and the decision
+        tracker.rebase(times[:70], clicks_per_cycle=cpc, total_clicks=70)
+        for t in times[70:]:
+            tracker.add(t)
         assert tracker.clicks_per_cycle == cpc
         assert tracker.rate_hz == pytest.approx(10.0, rel=0.01)
         assert tracker.phase == "steady" and tracker.stalls == 0
         tracker.silent_for(20.0)
         assert tracker.phase == "silent" and tracker.rate_hz is None
+    # fewer than 64 clicks: one click per cycle is shown whatever the pass says
+    tracker = capture._RateTracker()
+    tracker.rebase([0.1 * k for k in range(30)], clicks_per_cycle=2, total_clicks=30)
+    assert tracker.clicks_per_cycle == 1
     # a pause of 1 s inside a run is a stall
     tracker = capture._RateTracker(clicks_per_cycle=1)
     for t in [0.1 * k for k in range(20)] + [3.0 + 0.1 * k for k in range(5)]:
-        tracker.add(None, t)
+        tracker.add(t)
     assert tracker.stalls == 1
+
+
+def test_live_click_list_after_the_whole_run_passes_equals_the_offline_clicks():
+    # The offline analysis runs the detection module's whole-recording passes
+    # after the last block (second look at rejected candidates, atypical
+    # clicks, clicks per cycle); the live session runs them as it goes and
+    # once more at the end, so its final list must be the offline one.
+    from popmeter.detection import ClickDetector, detect_clicks
+    from popmeter.synth import RunScenario, render
+
+    scen = RunScenario(duration_s=14.0, heating_s=1.0, startup_s=3.0, fade_s=3.0, after_s=1.0,
+                       clicks_per_cycle=2, click_to_noise_db=18.0, seed=12)
+    samples, _truth = render(scen)
+    x = samples[:, :1].astype(np.float32)
+    offline = detect_clicks(x[:, 0], SR)
+    s = _session(MemorySink(), detector=ClickDetector(SR))
+    _feed(s, x, np.random.default_rng(13))
+    res = s.finish()
+    assert len(s.pass_seconds) >= 5  # passes ran during the capture, not only at the end
+    assert [c.sample for c in res.clicks] == [c.sample for c in offline.clicks]
+    assert [c.kind for c in res.clicks] == [c.kind for c in offline.clicks]
+    assert res.clicks_per_cycle == offline.clicks_per_cycle
+    # the passes matter here: many weak second clicks fail the streaming
+    # tests and are promoted by the second look
+    promoted = {c.sample for c in res.clicks} - {c.sample for c in res.live_clicks}
+    assert len(promoted) >= 10
 
 
 # --- listen() wired to a stand-in sounddevice (no audio stack) ---------------------
