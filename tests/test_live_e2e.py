@@ -137,18 +137,23 @@ def test_listen_keeps_every_sample_and_live_clicks_match_offline(jack_server, tm
     off_t = np.array([c["time_s"] for c in offline["clicks"]])
     assert len(off_t) >= 20
     matched = sum(bool(np.min(np.abs(live_t - t)) <= 1e-3) for t in off_t)
-    assert matched >= 0.98 * len(off_t)
-    # Live clicks are the streaming detector's output; the offline analysis
-    # also drops, over the whole recording, clicks that ring like none of the
-    # others (detection.reject_atypical). Every live click must be one of the
-    # offline clicks or one of those offline rejections.
+    assert matched >= 0.98 * len(off_t)  # the criterion
+    extra = [t for t in live_t if np.min(np.abs(off_t - t)) > 1e-3]
+    assert len(extra) <= 0.02 * len(live_t)
+    # The clicks as the streaming detector reported them, before the
+    # whole-run passes: each is an offline click or a candidate the offline
+    # passes set aside (atypical ring).
     from popmeter.detection import detect_clicks
 
     full = detect_clicks(saved, SR)
-    known = np.concatenate([[c.time_s for c in full.clicks], full.rejected_times_s])
     assert len(full.clicks) == len(off_t)
-    unexplained = [t for t in live_t if np.min(np.abs(known - t)) > 1e-3]
-    assert unexplained == []
+    known = np.concatenate([[c.time_s for c in full.clicks], full.rejected_times_s])
+    stream_t = [c["time_s"] for c in live["stream_clicks"]]
+    assert len(stream_t) >= 0.5 * len(off_t)
+    assert [t for t in stream_t if np.min(np.abs(known - t)) > 1e-3] == []
+    # detection latency in audio: onset -> audio received when reported
+    latency_s = [(c["frames_received"] - c["sample"]) / SR for c in live["stream_clicks"]]
+    assert max(latency_s) <= 0.050 + 1024 / SR  # 50 ms + one JACK period (and a margin)
 
 
 def test_devices_lists_the_jack_input_as_default(jack_server):
