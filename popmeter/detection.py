@@ -72,6 +72,7 @@ the defaults: the 12.5 ms refractory look-ahead, the 10.7 ms frame and the
 
 from __future__ import annotations
 
+import dataclasses
 import math
 from collections.abc import Iterable
 from dataclasses import dataclass, field
@@ -101,7 +102,7 @@ _LEAK_DB = 40.0
 _ABS_FLOOR_DB = -110.0  # bin level (dB re a full-scale sine) below which nothing is a click
 
 
-@dataclass
+@dataclass(slots=True)
 class Click:
     """One detected diaphragm click.
 
@@ -1019,7 +1020,7 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
             continue
         if out and c.time_s - out[-1].time_s < refractory_s:
             continue
-        out.append(Click(**c.__dict__))
+        out.append(dataclasses.replace(c))
     return out
 
 
@@ -1055,7 +1056,7 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     if clicks_per_cycle not in (None, 1, 2):
         raise UsageError(f"clicks_per_cycle={clicks_per_cycle}: must be 1 or 2")
     n = len(clicks)
-    out = [Click(**c.__dict__) for c in clicks]
+    out = [dataclasses.replace(c) for c in clicks]
     if n == 0:
         return out, int(clicks_per_cycle or 1)
     feats = _kind_features(out)
