@@ -18,6 +18,7 @@ from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import Any, Self
 
+import numpy as np
 from rich.align import Align
 from rich.console import Console, Group
 from rich.live import Live
@@ -50,12 +51,20 @@ _SPARKS = "▁▂▃▄▅▆▇█"
 METER_FLOOR_DBFS = -80.0
 
 
-def sparkline(values: Sequence[float], *, width: int = 40) -> str:
-    """The last ``width`` values as a one-line bar chart (scaled to their own range)."""
+def sparkline(values: Sequence[float], *, width: int = 40, min_span: float = 0.1) -> str:
+    """The last ``width`` values as a one-line bar chart.
+
+    Scaled to their own range, but never to less than ``min_span`` times their
+    median (default 10 %), so the jitter of a steady engine does not fill the
+    chart from top to bottom.
+    """
     vals = [v for v in values[-width:] if v is not None and math.isfinite(v)]
     if not vals:
         return ""
     lo, hi = min(vals), max(vals)
+    mid = float(np.median(vals))
+    if hi - lo < min_span * abs(mid):
+        lo, hi = mid - 0.5 * min_span * abs(mid), mid + 0.5 * min_span * abs(mid)
     if hi - lo < 1e-9:
         return _SPARKS[3] * len(vals)
     scale = (len(_SPARKS) - 1) / (hi - lo)

@@ -522,6 +522,8 @@ def test_view_shows_clipping_quiet_rate_and_counters():
 def test_sparkline_and_big_verdict_letters():
     assert live_view.sparkline([1.0, 2.0, 3.0]) == "▁▅█"
     assert live_view.sparkline([]) == ""
+    steady = live_view.sparkline([12.3, 12.4, 12.35, 12.5, 12.2])  # 2 % jitter: mid-height
+    assert len(steady) == 5 and not set(steady) & {"▁", "█"}
     rows = live_view.big_text("PASS").split("\n")
     assert len(rows) == 5 and rows[0].startswith("████")
     from rich.console import Console
