@@ -300,3 +300,36 @@ def test_generator_streamed_equals_whole_with_distractors():
         assert [c.sample for c in streamed.clicks] == [c.sample for c in whole.clicks]
         assert [c.kind for c in streamed.clicks] == [c.kind for c in whole.clicks]
         assert streamed.rejected == whole.rejected
+
+
+def test_finish_detection_is_the_offline_result():
+    from popmeter.detection import finish_detection
+
+    x, _truth, fs = _render(click_to_noise_db=25.0, seed=8, clicks_per_cycle=2)
+    det = ClickDetector(fs)
+    got = []
+    for i in range(0, len(x), 1024):
+        got += det.process(x[i:i + 1024])
+    got += det.flush()
+    live = finish_detection(det, got)
+    offline = detect_clicks(x, fs)
+    assert [c.sample for c in live.clicks] == [c.sample for c in offline.clicks]
+    assert live.clicks_per_cycle == offline.clicks_per_cycle == 2
+
+
+@pytest.mark.parametrize("fs", [16000, 44100, 96000])
+def test_other_sample_rates(fs):
+    rng = np.random.default_rng(fs)
+    n = int(4.0 * fs)
+    x = 0.002 * rng.standard_normal(n)
+    onsets = np.arange(int(0.3 * fs), n - int(0.1 * fs), int(0.09 * fs))
+    t = np.arange(1, int(0.04 * fs) + 1) / fs
+    click = 0.3 * np.exp(-t / 0.006) * np.sin(2 * np.pi * 1800.0 * t)
+    for n0 in onsets:
+        x[n0:n0 + click.size] += click
+    res = detect_clicks(x.astype(np.float32), fs)
+    est = np.array([c.sample for c in res.clicks])
+    f, _, _ = mir_eval.onset.f_measure(onsets / fs, est / fs, window=0.005)
+    assert f == 1.0
+    assert np.median(np.abs(est - onsets)) / fs <= 0.1e-3
+    assert res.ring_hz == pytest.approx(1800.0, rel=0.01)
