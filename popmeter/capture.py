@@ -102,8 +102,9 @@ GIL_SWITCH_INTERVAL_S = 0.0005
 #: Peak level at or above which a block counts as clipped (full scale = 1.0).
 CLIP_LEVEL = 0.999
 
-#: RMS level below which the input counts as too quiet (dBFS): well below the
-#: room noise of any working microphone and preamp (common practice, no source).
+#: RMS level below which the input counts as too quiet (dBFS, AES17 RMS): well
+#: below the room noise of any working microphone and preamp (common practice,
+#: no source).
 TOO_QUIET_DBFS = -70.0
 
 #: Length of the rate trace kept for the live view (cycles).
@@ -349,7 +350,7 @@ class LiveState:
     analysed_s: float = 0.0  # audio processed by the detector
     written_s: float = 0.0  # audio written to disk
     peak_dbfs: float = -math.inf  # peak of the last ~0.25 s
-    rms_dbfs: float = -math.inf  # RMS of the last ~0.25 s
+    rms_dbfs: float = -math.inf  # RMS of the last ~0.25 s (AES17: full-scale sine = 0)
     clipped_blocks: int = 0
     clipping_now: bool = False
     too_quiet: bool = False
@@ -481,6 +482,14 @@ class _RateTracker:
 
 
 # --- the session -----------------------------------------------------------------
+
+
+def _rms_dbfs(sum_of_squares: float, n: int) -> float:
+    """RMS level in dBFS as AES17 defines it: a full-scale sine reads 0 dBFS
+    (so 3.01 dB above ``10 log10(mean square)``)."""
+    if n <= 0 or sum_of_squares <= 0:
+        return -math.inf
+    return 10.0 * math.log10(2.0 * sum_of_squares / n)
 
 
 class CaptureSession:
@@ -803,7 +812,7 @@ class CaptureSession:
                 n -= self._level_window.pop(0)[2]
             if peak >= CLIP_LEVEL:
                 self._clipped_blocks += 1
-            rms_db = 10 * math.log10(sumsq / x.size) if sumsq > 0 else -math.inf
+            rms_db = _rms_dbfs(sumsq, x.size)
             self._quiet_frames = self._quiet_frames + x.size if rms_db < TOO_QUIET_DBFS else 0
 
     def _add_clicks(self, found: list[Any]) -> None:
@@ -891,7 +900,7 @@ class CaptureSession:
                 analysed_s=self.frames_analysed / sr,
                 written_s=self.frames_written / sr,
                 peak_dbfs=20 * math.log10(peak) if peak > 0 else -math.inf,
-                rms_dbfs=10 * math.log10(sumsq / n) if n and sumsq > 0 else -math.inf,
+                rms_dbfs=_rms_dbfs(sumsq, n),
                 clipped_blocks=self._clipped_blocks,
                 clipping_now=recent_clip,
                 too_quiet=self._quiet_frames >= sr,

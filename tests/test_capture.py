@@ -788,3 +788,19 @@ def test_listen_refuses_other_formats_and_existing_files(fake_sd, tmp_path, caps
     with pytest.raises(UsageError, match="take.wav: already exists"):
         _run_listen(tmp_path, capsys)
     assert (tmp_path / "take.wav").read_bytes() == b"an earlier run"
+
+
+def test_level_meter_reads_dbfs_as_aes17_defines_it():
+    # AES17 (measurement of digital audio equipment): a full-scale sine has an
+    # RMS level of 0 dBFS (from memory); its peak is 1.0 = 0 dBFS. A sine at
+    # half amplitude: -6.02 dBFS both ways.
+    t = np.arange(SR) / SR
+    for amp, want in ((1.0, 0.0), (0.5, -6.0206)):
+        x = (amp * np.sin(2 * np.pi * 997 * t)).astype(np.float32)[:, None]
+        s = _session(MemorySink(), clock=FrozenClock())
+        s.callback(x, len(x), None, _flags())
+        _wait_caught_up(s)
+        st = s.snapshot()
+        s.finish()
+        assert st.rms_dbfs == pytest.approx(want, abs=0.01)
+        assert st.peak_dbfs == pytest.approx(want, abs=0.01)
