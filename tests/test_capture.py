@@ -632,7 +632,7 @@ class FakeStream:
             if self._stop.is_set():
                 return
             if self.sd.lose_after is not None and i >= self.sd.lose_after:
-                self.active = False
+                self.active = self.sd.stays_active  # a driver may not even notice
                 return
             if self.sd.interrupt_after is not None and i >= self.sd.interrupt_after:
                 _thread.interrupt_main()
@@ -666,6 +666,7 @@ class FakeSounddevice:
         self.default_rate = default_rate
         self.open_error = None
         self.lose_after = None
+        self.stays_active = False
         self.interrupt_after = None
         self.default = type("D", (), {"device": [0, 0]})()
 
@@ -804,3 +805,15 @@ def test_level_meter_reads_dbfs_as_aes17_defines_it():
         s.finish()
         assert st.rms_dbfs == pytest.approx(want, abs=0.01)
         assert st.peak_dbfs == pytest.approx(want, abs=0.01)
+
+
+def test_listen_device_that_stops_calling_back_is_lost_after_2_s(fake_sd, tmp_path, capsys):
+    fake_sd.lose_after = 2 * 48000
+    fake_sd.stays_active = True  # no error, no end of stream: the audio just stops
+    t0 = time.monotonic()
+    code, _out, err = _run_listen(tmp_path, capsys)
+    assert code == 2
+    assert "input device stopped delivering audio for 2 s (unplugged or lost)" in err
+    assert time.monotonic() - t0 < 10
+    saved, _ = sf.read(tmp_path / "take.wav", dtype="float32")
+    np.testing.assert_array_equal(saved, fake_sd.source[:2 * 48000])
