@@ -157,8 +157,9 @@ class DetectionResult:
     rejected : int
         Candidate transients rejected as not being clicks.
     band_hz : (float, float)
-        The band in which the clicks were found (Hz): the forced band, or the
-        bank band that detected most clicks (the default first band if none).
+        Where the clicks ring (Hz): the forced band, or the 5th-95th
+        percentile of the clicks' ring frequencies widened by 10 % (the
+        watched range when there are fewer than 3 clicks).
     ring_hz : float or None
         Median ring frequency of the main clicks (Hz); ``None`` without clicks.
     warnings : list of str
@@ -1305,7 +1306,15 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
     labelled, cpc = assign_kinds(kept, clicks_per_cycle=clicks_per_cycle)
     rings = [c.ring_hz for c in labelled if c.kind == 0 and c.ring_hz]
     ring = float(np.median(rings)) if rings else None
-    band = det.band_hz or (float(det._bin_hz[0]), float(det._bin_hz[-1]))
+    all_rings = [c.ring_hz for c in labelled if c.ring_hz]
+    if det._forced is not None:
+        band = det._forced
+    elif len(all_rings) >= 3:
+        # where the clicks ring: 5th to 95th percentile of the rings, widened by 10 %
+        lo, hi = np.percentile(all_rings, [5, 95])
+        band = (round(float(lo) / 1.1, 1), round(float(hi) * 1.1, 1))
+    else:
+        band = det.band_hz or (float(det._bin_hz[0]), float(det._bin_hz[-1]))
     if not labelled:
         if duration_s <= 0:
             warnings.append("no audio: zero samples analysed")
