@@ -123,9 +123,9 @@ def render(state: Any) -> Panel:
         rate.append(f"{state.rate_hz:6.2f} Hz ", style=f"bold {BRASS}")
     else:
         rate.append("   -- Hz ", style="dim")
-    rate.append(sparkline(state.rate_trace_hz), style=BRASS)
+    rate.append(sparkline(state.rate_trace_hz, width=32), style=BRASS)
     if getattr(state, "clicks_per_cycle", 1) == 2:
-        rate.append("  (2 clicks per cycle)", style="dim")
+        rate.append("  (2 clicks/cycle)", style="dim")
     grid.add_row("cycle rate", rate)
 
     if state.last_click_s is not None:
