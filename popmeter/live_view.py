@@ -133,7 +133,7 @@ def render(state: Any) -> Panel:
         run = Text(f"first click {state.first_click_s:.2f} s, last {state.last_click_s:.2f} s "
                    f"({since:.1f} s ago)")
         if state.silence_stop_s:
-            run.append(f"; stops after {state.silence_stop_s:g} s without a click", style="dim")
+            run.append(f"; ends after {state.silence_stop_s:g} s silent", style="dim")
         grid.add_row("run", run)
     else:
         grid.add_row("run", Text("waiting for the first click…", style="dim"))
