@@ -325,8 +325,6 @@ class ClickDetector:
         if band_hz is not None:
             hp = min(hp, 0.5 * float(band_hz[0]))
         self._hp_sos = signal.butter(2, hp, "highpass", fs=fs, output="sos")
-        self._hp_sos_32 = self._hp_sos.astype(np.float32)
-        self._hp_warm = round(10.0 / (2 * math.pi * hp) * fs)  # ten time constants
 
         # timing constants (input samples)
         self._refr = max(1, round(fs / max_rate_hz / self.hop))  # frames
@@ -363,6 +361,8 @@ class ClickDetector:
         self.rejected = 0
         self.rejected_times_s: list[float] = []
         self._x = np.zeros(0, dtype=np.float32)  # raw, from _x0
+        self._y = np.zeros(0, dtype=np.float32)  # high-passed, from _x0
+        self._hp_zi = np.zeros((self._hp_sos.shape[0], 2))
         self._x0 = 0
         self._d = np.zeros(0, dtype=np.float32)  # decimated, from _d0
         self._d0 = 0
@@ -430,6 +430,8 @@ class ClickDetector:
         start = self.samples_seen
         self.samples_seen += x.size
         self._x = np.concatenate([self._x, x])
+        y, self._hp_zi = signal.sosfilt(self._hp_sos, x, zi=self._hp_zi)
+        self._y = np.concatenate([self._y, y.astype(np.float32)])
         # decimate: FIR with carried history, keep samples whose index is a multiple of q
         if self._q > 1:
             q = self._q
@@ -698,16 +700,18 @@ class ClickDetector:
         else:
             first = self._decided * self.hop - self._pre - 2 * self.hop - self._frame_span
         first = min(first, total - self._pre - self._frame_span)
-        first -= self._hp_warm + self._nfft_ring
+        first -= self._nfft_ring
         if first > self._x0:
             cut = first - self._x0
             self._x = self._x[cut:]
+            self._y = self._y[cut:]
             self._x0 = first
         return out
 
-    def _window(self, starts: np.ndarray, length: int) -> np.ndarray:
+    def _window(self, starts: np.ndarray, length: int, *, high_passed: bool = False
+                ) -> np.ndarray:
         """Rows x[start:start + length] of the kept raw samples, zero outside."""
-        x, x0 = self._x, self._x0
+        x, x0 = (self._y if high_passed else self._x), self._x0
         out = np.zeros((len(starts), length), dtype=np.float32)
         for i, st in enumerate((starts - x0).tolist()):
             a, b = max(st, 0), min(st + length, x.size)
@@ -723,10 +727,10 @@ class ClickDetector:
         # one high-passed window per candidate, wide enough for every step:
         # warm-up | pre-onset noise | search region | ring tail
         search = self._frame_span + 3 * self.hop
-        lead = self._hp_warm + self._tail + self._pre + 2 * self.hop
+        lead = self._tail + self._pre + 2 * self.hop
         length = lead + search + self._tail + self._post
         w0 = frames * self.hop - lead
-        y = signal.sosfilt(self._hp_sos_32, self._window(w0, length), axis=1)
+        y = self._window(w0, length, high_passed=True)
         # coarse: peak of |y| over the frame holding the rise
         s0 = lead
         p = s0 + np.argmax(np.abs(y[:, s0:s0 + search]), axis=1)
