@@ -62,13 +62,15 @@ def sparkline(values: Sequence[float], *, width: int = 40, min_span: float = 0.1
     if not vals:
         return ""
     lo, hi = min(vals), max(vals)
-    mid = float(np.median(vals))
-    if hi - lo < min_span * abs(mid):
-        lo, hi = mid - 0.5 * min_span * abs(mid), mid + 0.5 * min_span * abs(mid)
+    span = min_span * abs(float(np.median(vals)))
+    if hi - lo < span:  # widen around the middle of the range: every value stays inside
+        mid = 0.5 * (lo + hi)
+        lo, hi = mid - 0.5 * span, mid + 0.5 * span
     if hi - lo < 1e-9:
         return _SPARKS[3] * len(vals)
     scale = (len(_SPARKS) - 1) / (hi - lo)
-    return "".join(_SPARKS[round((v - lo) * scale)] for v in vals)
+    top = len(_SPARKS) - 1
+    return "".join(_SPARKS[min(top, max(0, round((v - lo) * scale)))] for v in vals)
 
 
 def level_bar(dbfs: float, *, width: int = 30) -> Text:

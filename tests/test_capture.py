@@ -524,6 +524,8 @@ def test_sparkline_and_big_verdict_letters():
     assert live_view.sparkline([]) == ""
     steady = live_view.sparkline([12.3, 12.4, 12.35, 12.5, 12.2])  # 2 % jitter: mid-height
     assert len(steady) == 5 and not set(steady) & {"▁", "█"}
+    lopsided = live_view.sparkline([10.0, 10.0, 10.0, 10.9])  # range < 10 %, off-centre
+    assert len(lopsided) == 4 and lopsided[-1] > lopsided[0]
     rows = live_view.big_text("PASS").split("\n")
     assert len(rows) == 5 and rows[0].startswith("████")
     from rich.console import Console
