@@ -178,7 +178,9 @@ class LiveDisplay:
     ``snapshot`` returns a LiveState. With ``live=True`` a rich ``Live`` view
     redraws :data:`REFRESH_PER_S` times per second from its own thread;
     otherwise :meth:`tick` prints a plain line every :data:`PLAIN_EVERY_S`
-    seconds. Call :meth:`tick` from the waiting loop in both cases.
+    seconds. Call :meth:`tick` from the waiting loop in both cases. A failure
+    while drawing never reaches the capture: the view shows one line with
+    the error instead, and the recording goes on.
     """
 
     def __init__(self, snapshot: Callable[[], Any], *, console: Console | None = None,
@@ -194,11 +196,19 @@ class LiveDisplay:
 
     def __enter__(self) -> Self:
         if self.live:
-            self._live = Live(get_renderable=lambda: render(self.snapshot()),
+            self._live = Live(get_renderable=self.renderable,
                               console=self.console, refresh_per_second=REFRESH_PER_S,
                               transient=False, redirect_stdout=False, redirect_stderr=False)
             self._live.__enter__()
         return self
+
+    def renderable(self) -> Any:
+        """The live view of the current snapshot (or the error that prevented it)."""
+        try:
+            return render(self.snapshot())
+        except Exception as exc:  # noqa: BLE001 - the view must not stop the capture
+            return Text(f"live view failed ({type(exc).__name__}: {exc}); recording continues",
+                        style=WARN_STYLE)
 
     def tick(self) -> None:
         if self._live is not None:
@@ -206,7 +216,11 @@ class LiveDisplay:
         now = self._clock()
         if now >= self._next_plain:
             self._next_plain = now + PLAIN_EVERY_S
-            self.console.print(plain_line(self.snapshot()), highlight=False)
+            try:
+                line = plain_line(self.snapshot())
+            except Exception as exc:  # noqa: BLE001 - the view must not stop the capture
+                line = f"progress line failed ({type(exc).__name__}: {exc}); recording continues"
+            self.console.print(line, highlight=False)
 
     def __exit__(self, *exc: object) -> None:
         if self._live is not None:

@@ -819,3 +819,17 @@ def test_listen_device_that_stops_calling_back_is_lost_after_2_s(fake_sd, tmp_pa
     assert time.monotonic() - t0 < 10
     saved, _ = sf.read(tmp_path / "take.wav", dtype="float32")
     np.testing.assert_array_equal(saved, fake_sd.source[:2 * 48000])
+
+
+def test_a_failing_view_never_stops_the_capture():
+    from rich.console import Console
+
+    def broken():
+        raise ValueError("bad state")
+
+    buf = io.StringIO()
+    display = live_view.LiveDisplay(broken, console=Console(file=buf), live=False)
+    with display:
+        display.tick()
+    assert "progress line failed (ValueError: bad state); recording continues" in buf.getvalue()
+    assert "recording continues" in display.renderable().plain
