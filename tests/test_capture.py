@@ -9,6 +9,7 @@ from __future__ import annotations
 import builtins
 import errno
 import io
+import math
 import os
 import signal
 import subprocess
@@ -833,3 +834,32 @@ def test_a_failing_view_never_stops_the_capture():
         display.tick()
     assert "progress line failed (ValueError: bad state); recording continues" in buf.getvalue()
     assert "recording continues" in display.renderable().plain
+
+
+def test_view_renders_any_state_it_can_be_given():
+    from rich.console import Console
+
+    rng = np.random.default_rng(17)
+    console = Console(file=io.StringIO(), width=80)
+    odd = [-math.inf, math.inf, math.nan, 0.0, -200.0, 3.0]
+    for _ in range(200):
+        trace = list(rng.choice([rng.uniform(0, 40), *odd], size=int(rng.integers(0, 70))))
+        st = capture.LiveState(
+            sample_rate_hz=48000, channels=1, channel=0,
+            elapsed_s=float(rng.uniform(0, 1e5)), analysed_s=float(rng.uniform(0, 1e5)),
+            peak_dbfs=float(rng.choice(odd)), rms_dbfs=float(rng.choice([*odd, -30.0])),
+            clicks=int(rng.integers(0, 10**6)),
+            first_click_s=None if rng.random() < 0.3 else float(rng.uniform(0, 100)),
+            last_click_s=None if rng.random() < 0.3 else float(rng.uniform(0, 100)),
+            rate_hz=None if rng.random() < 0.3 else float(rng.uniform(0, 40)),
+            clicks_per_cycle=int(rng.integers(1, 3)), rate_trace_hz=trace,
+            clipping_now=bool(rng.random() < 0.5), too_quiet=bool(rng.random() < 0.5),
+            queue_fill=float(rng.uniform(0, 1)), max_seconds=None if rng.random() < 0.5 else 60.0,
+            silence_stop_s=None if rng.random() < 0.5 else 5.0)
+        if st.first_click_s is None:
+            st.last_click_s = None
+        console.file.seek(0)
+        console.file.truncate()
+        console.print(live_view.render(st))  # must not raise, whatever the numbers
+        assert "popmeter listen" in console.file.getvalue()
+        assert "clicks" in live_view.plain_line(st)
