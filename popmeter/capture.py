@@ -1150,8 +1150,14 @@ def listen(
         console.print(f"[yellow]note:[/] {rate_note}")
 
     sink = WavSink(out, rate, channels)
-    session = CaptureSession(sink=sink, sample_rate_hz=rate, channels=channels, channel=channel,
-                             max_seconds=max_seconds, silence_stop_s=silence_stop_s)
+    try:
+        session = CaptureSession(sink=sink, sample_rate_hz=rate, channels=channels,
+                                 channel=channel, max_seconds=max_seconds,
+                                 silence_stop_s=silence_stop_s)
+    except BaseException:
+        sink.close()
+        out.unlink(missing_ok=True)  # nothing recorded yet: leave no empty file behind
+        raise
     session.start()
     # The audio callback needs the GIL within one device period (10 ms at
     # 512 frames); Python hands the GIL between threads every 5 ms by default,

@@ -863,3 +863,11 @@ def test_view_renders_any_state_it_can_be_given():
         console.print(live_view.render(st))  # must not raise, whatever the numbers
         assert "popmeter listen" in console.file.getvalue()
         assert "clicks" in live_view.plain_line(st)
+
+
+def test_listen_at_a_rate_the_detector_refuses_leaves_no_file(fake_sd, tmp_path, capsys):
+    fake_sd.rates = {4000}
+    fake_sd.default_rate = 4000.0
+    with pytest.raises(UsageError, match="8 kHz or more"):
+        _run_listen(tmp_path, capsys)
+    assert not (tmp_path / "take.wav").exists()
