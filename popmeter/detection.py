@@ -325,6 +325,7 @@ class ClickDetector:
         if band_hz is not None:
             hp = min(hp, 0.5 * float(band_hz[0]))
         self._hp_sos = signal.butter(2, hp, "highpass", fs=fs, output="sos")
+        self._hp_hz = hp
 
         # timing constants (input samples)
         self._refr = max(1, round(fs / max_rate_hz / self.hop))  # frames
@@ -342,7 +343,6 @@ class ClickDetector:
         f_short = np.arange(self._nfft_short // 2 + 1) * fs / self._nfft_short
         self._short_bins = (int(np.searchsorted(f_short, 0.8 * self._hp_corner())),
                             int(np.searchsorted(f_short, min(12000.0, 0.45 * fs))))
-        self._learn_gap = max(1, math.ceil((self._tail + self._post) / self.hop) + 2)
         self._checkpoint = round(1.0 / 0.002)  # frames between learning updates
         self._next_cp = self._checkpoint
         self._typ_current: np.ndarray | None = None
@@ -673,15 +673,6 @@ class ClickDetector:
         self._typ_cache = typ
         return typ
 
-    def _measure_upto(self, limit_frame: int) -> None:
-        ready = []
-        while self._pending and self._pending[0].frame < limit_frame:
-            ready.append(self._pending.pop(0))
-        if ready:
-            self._out.extend(self._measure(ready))
-
-    # -------------------------------------------------------------- finalising
-
     def _finalise(self, *, final: bool) -> list[Click]:
         total = self.samples_seen
         ready: list[_Candidate] = []
@@ -918,8 +909,8 @@ class ClickDetector:
         return t
 
     def _hp_corner(self) -> float:
-        return float(min(300.0, 0.25 * self.sample_rate_hz)) if self._forced is None else \
-            float(self._forced[0])
+        """Lowest frequency (Hz) the refinement stream keeps: the high-pass corner."""
+        return float(self._hp_hz)
 
 
 # ---------------------------------------------------------------------------
@@ -1043,7 +1034,13 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     into two families along the detrended features and the labels smoothed
     by a two-state Viterbi pass that expects alternation but lets it restart
     after a gap (a missed click), so one lost click does not flip the rest.
-    The louder family is the main click (kind 0).
+    When the second clicks are found only now and then there is no
+    alternation to see; two more tests then also decide "two": a clear
+    two-group split in level and timbre (:func:`_bimodal`: Lloyd's 2-means,
+    groups 4 or more pooled standard deviations apart, the smaller holding
+    15 % or more), or quieter clicks arriving at one consistent fraction of
+    the period (:func:`_second_click_phase`).  The louder family is the main
+    click (kind 0).
 
     Parameters
     ----------
