@@ -969,19 +969,16 @@ class CaptureSession:
 def detection_passes(detector: Any, clicks: list[Any]) -> Any:
     """The detection module's whole-recording passes on the clicks of a stream so far.
 
-    What ``popmeter.detection.detect_clicks_in_blocks`` does after the last
-    block (atypical clicks set aside, a second look at rejected candidates
-    that ring like a family of clicks, one or two clicks per cycle), run on
-    the live ClickDetector's state: the same code, so that the live click
-    list becomes the offline one. Returns a ``DetectionResult``.
+    :func:`popmeter.detection.finish_detection`: what
+    ``detect_clicks_in_blocks`` does after the last block (atypical clicks set
+    aside, rejected candidates that ring like a family taken back, one or two
+    clicks per cycle), run on the live ClickDetector's state -- the same code,
+    so the live click list becomes the offline one. Returns a
+    ``DetectionResult``; the detector is not changed.
     """
-    from popmeter import detection
+    from popmeter.detection import finish_detection
 
-    # The passes are not public API of popmeter.detection yet (its private
-    # _result); tests/test_capture.py fails loudly if the name changes.
-    return detection._result(
-        clicks, detector.rejected, detector.rejected_times_s, detector,
-        clicks_per_cycle=None, duration_s=detector.samples_seen / detector.sample_rate_hz)
+    return finish_detection(detector, clicks)
 
 
 def choose_sample_rate(sd: Any, device: InputDevice, channels: int,
