@@ -106,6 +106,8 @@ def throughput(tmp: Path) -> None:
     print("1. Throughput of the live pipeline (callback + queue + WAV writer + ClickDetector + view),")
     print(f"   60 s run at {SR} Hz, blocks of {BLOCK}, {pinned}, 3 trials")
     print(f"   x real time: {worst:.1f} (slowest) .. {best:.1f} (fastest)   target >= 20")
+    print("   machine load average (1 min) at the end: "
+          f"{os.getloadavg()[0]:.2f} on {os.cpu_count()} cores (shared machines slow the slowest)")
     print(f"   clicks found: {results[0][1]}; view redraws: {results[0][3]} "
           f"(median {1000 * results[0][2]:.2f} ms each)")
     try:
