@@ -29,28 +29,11 @@ from pathlib import Path
 from typing import Any, Literal
 
 from popmeter.errors import SpecError
+from popmeter.timeline import SUMMARY_KEYS as TIMELINE_SUMMARY_KEYS
 
-#: The summary metrics a spec may limit (the ``summary`` keys of the
-#: ``popmeter.analysis/1`` JSON document, including ``steady_rate_sem_hz``
-#: which the README documents beyond the required set), in report order.
-SUMMARY_KEYS: tuple[str, ...] = (
-    "first_click_s",
-    "last_click_s",
-    "steady_start_s",
-    "steady_end_s",
-    "steady_rate_hz",
-    "steady_rate_iqr_hz",
-    "steady_rate_sem_hz",
-    "jitter_pct",
-    "drift_pct_per_min",
-    "stalls",
-    "cycles",
-    "run_s",
-    "time_to_steady_s",
-    "ignition_delay_s",
-    "ring_hz",
-    "diaphragm_stiffness_kpa_per_ml",
-)
+#: The summary metrics a spec may limit: the ``summary`` keys of the
+#: ``popmeter.analysis/1`` document, defined once by the timeline.
+SUMMARY_KEYS = TIMELINE_SUMMARY_KEYS
 
 _TOP_KEYS = ("name", "limits")
 _LIMIT_KEYS = ("min", "max", "target")
