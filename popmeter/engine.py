@@ -145,6 +145,22 @@ def shape_coefficients(shape: str, aspect) -> tuple[np.ndarray, np.ndarray]:
     return vol, lam
 
 
+def outline_scale(values: dict[str, np.ndarray], shape: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Length scale (m), aspect ratio and area (m^2) of the diaphragm's outline.
+
+    The scale is the radius of a circle and the short side of a rectangle (the
+    lengths the plate tables are written in); the aspect ratio is long side
+    over short side (1 for a circle). ``values`` holds ``diameter_m`` or
+    ``width_m`` and ``length_m`` (arrays: one entry per Monte Carlo draw).
+    """
+    if shape == "circle":
+        scale = values["diameter_m"] / 2.0
+        return scale, np.ones_like(scale), math.pi * scale**2
+    scale = np.minimum(values["width_m"], values["length_m"])
+    aspect = np.maximum(values["width_m"], values["length_m"]) / scale
+    return scale, aspect, values["width_m"] * values["length_m"]
+
+
 def forward(values: dict[str, Any], *, shape: str, outlet: str, wetted: bool) -> dict[str, np.ndarray]:
     """Vectorised forward model on a dictionary of SI inputs (floats or equal-shape arrays).
 
@@ -164,14 +180,7 @@ def forward(values: dict[str, Any], *, shape: str, outlet: str, wetted: bool) ->
                         count=v["count"], outlet=outlet, water_density_kg_m3=v["water_density_kg_m3"])
     cg = gas_compliance_m3_pa(gas_volume_m3=v["gas_volume_m3"], polytropic_index=v["polytropic_index"],
                               pressure_pa=v["pressure_pa"])
-    if shape == "circle":
-        scale = v["diameter_m"] / 2.0
-        aspect = np.ones_like(scale)
-        area = math.pi * scale**2
-    else:
-        scale = np.minimum(v["width_m"], v["length_m"])
-        aspect = np.maximum(v["width_m"], v["length_m"]) / scale
-        area = v["width_m"] * v["length_m"]
+    scale, aspect, area = outline_scale(v, shape)
     vol_coeff, lam2 = shape_coefficients(shape, aspect)
     d = plate.flexural_rigidity(v["youngs_modulus_pa"], v["thickness_m"], v["poisson_ratio"])
     cp = vol_coeff * scale**6 / d

@@ -173,18 +173,6 @@ def _thickness_from_ring(ring_hz: np.ndarray, *, lam2: np.ndarray, scale_m: np.n
     return h
 
 
-def _geometry(draws: dict[str, np.ndarray], shape: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    if shape == "circle":
-        scale = draws["diameter_m"] / 2.0
-        aspect = np.ones_like(scale)
-        area = math.pi * scale**2
-    else:
-        scale = np.minimum(draws["width_m"], draws["length_m"])
-        aspect = np.maximum(draws["width_m"], draws["length_m"]) / scale
-        area = draws["width_m"] * draws["length_m"]
-    return scale, aspect, area
-
-
 def _refused(nominal_k: float, nominal_h_mm: float, warnings: list[str], draws: int,
              method: str | None = None, lower: float | None = None) -> StiffnessEstimate:
     return StiffnessEstimate(method, None, None, None, None, warnings, nominal_k, None,
@@ -230,7 +218,7 @@ def estimate_stiffness(profile: BoatProfile, *, rate_hz: float, rate_sd_hz: floa
 
     x = _draw(profile, rng, draws)
     shape = profile.diaphragm.shape
-    scale, aspect, area = _geometry(x, shape)
+    scale, aspect, area = engine.outline_scale(x, shape)
     vol_coeff, lam2 = engine.shape_coefficients(shape, aspect)
     inertance = engine.inertance_kg_m4(inner_diameter_m=x["inner_diameter_m"], length_m=x["tube_length_m"],
                                        count=x["count"], outlet=profile.tubes.outlet,
