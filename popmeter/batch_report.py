@@ -31,16 +31,12 @@ from matplotlib.figure import Figure
 from popmeter.errors import UsageError
 from popmeter.qc_spec import SUMMARY_KEYS
 from popmeter.qc_stats import IndividualsChart, individuals_chart
+from popmeter.safety import SAFETY_NOTE
 
 if TYPE_CHECKING:
     from popmeter.batch import BatchResult
 
 _COLOURS = {"PASS": "#2e7d4f", "FAIL": "#b3261e", "ERROR": "#a15c00"}
-_SAFETY = (
-    "popmeter measures recordings; it does not certify that a boat is safe to run. "
-    "Open flames, hot boilers and steam call for adult supervision: follow local codes "
-    "and toy-safety regulations."
-)
 
 
 def _e(value: Any) -> str:
@@ -314,7 +310,7 @@ def batch_html(result: BatchResult) -> str:
                          f'src="{_png_data(fig)}">')
             parts.append(_violations_caption(st.chart, labels))
             parts.append("</figure>")
-    parts.append(f'<p class="note">{_e(_SAFETY)}</p>')
+    parts.append(f'<p class="note">{_e(SAFETY_NOTE)}</p>')
     parts.append(f"<script>{_SORT_JS}</script></body></html>")
     return "\n".join(parts)
 
@@ -553,7 +549,7 @@ def write_history_report(
                     f"<td>{_e(v.description)}</td></tr>"
                 )
             parts.append("</tbody></table>")
-    parts.append(f'<p class="note">{_e(_SAFETY)}</p></body></html>')
+    parts.append(f'<p class="note">{_e(SAFETY_NOTE)}</p></body></html>')
     page = report_dir / "index.html"
     page.write_text("\n".join(parts), encoding="utf-8")
     return page

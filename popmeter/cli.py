@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import argparse
 import sys
+from collections.abc import Sequence
 from pathlib import Path
-from typing import Sequence
 
 from popmeter.errors import ConfigError, PopmeterError, UsageError
 
@@ -282,4 +282,4 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
 
 
-__all__ = ["main", "build_parser", "UsageError"]
+__all__ = ["UsageError", "build_parser", "main"]

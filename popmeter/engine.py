@@ -36,6 +36,7 @@ import numpy as np
 from popmeter import plate
 from popmeter.plate import FloatOrArray
 from popmeter.profile import BoatProfile, load_profile
+from popmeter.safety import SAFETY_LINE
 
 #: Outlet end corrections as a fraction of the tube radius.
 END_CORRECTION: dict[str, float] = {
@@ -46,8 +47,6 @@ END_CORRECTION: dict[str, float] = {
 PA_PER_M3_TO_KPA_PER_ML = 1e-9
 """1 Pa/m^3 = 1e-9 kPa/mL."""
 
-SAFETY_NOTE = ("Caution: a running boat means an open flame, a hot boiler and steam; follow local "
-               "codes and toy-safety rules. popmeter measures, it does not certify safety.")
 
 
 # --- vectorised building blocks (numpy arrays or floats) ------------------------------
@@ -449,7 +448,7 @@ def model_report(profile_path: str | Path, *, json_path: str | Path | None = Non
                       f"{s_rate[name]:+.2f}", f"{s_ring[name]:+.2f}",
                       f"{effect[name]:+.1f} %" if tol else "-")
     console.print(table)
-    console.print(SAFETY_NOTE, style="dim")
+    console.print(SAFETY_LINE, style="dim")
 
     if json_path is not None:
         doc = {
@@ -458,6 +457,6 @@ def model_report(profile_path: str | Path, *, json_path: str | Path | None = Non
             "prediction": pred.to_json(),
             "sensitivities": {"rate_hz": s_rate, "ring_hz": s_ring},
             "tolerance_effect_pct": effect,
-            "caution": SAFETY_NOTE,
+            "caution": SAFETY_LINE,
         }
         Path(json_path).write_text(json.dumps(doc, indent=2) + "\n", encoding="utf-8")

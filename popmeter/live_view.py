@@ -26,6 +26,8 @@ from rich.panel import Panel
 from rich.table import Table
 from rich.text import Text
 
+from popmeter.safety import SAFETY_LINE
+
 #: Our own palette for the live view: deep water blue, brass, signal colours.
 FRAME_STYLE = "deep_sky_blue3"
 BRASS = "dark_goldenrod"
@@ -38,12 +40,6 @@ REFRESH_PER_S = 4
 #: Wall seconds between progress lines without the live view.
 PLAIN_EVERY_S = 5.0
 
-#: One line shown before every capture.
-CAUTION_LINE = (
-    "Caution: open flame, hot boiler and steam. Supervise children at all times and keep "
-    "mains-powered laptops and microphones away from the water. Follow local rules; "
-    "popmeter measures, it does not certify anything as safe."
-)
 
 _SPARKS = "▁▂▃▄▅▆▇█"
 
@@ -232,7 +228,7 @@ class LiveDisplay:
 def print_start(console: Console, *, device: Any, sample_rate_hz: int, out: Path,
                 max_seconds: float | None, silence_stop_s: float | None) -> None:
     """The start screen: the caution line, the device and where the recording goes."""
-    console.print(Text(CAUTION_LINE, style="bold yellow"))
+    console.print(Text(SAFETY_LINE, style="bold yellow"))
     ends = []
     if silence_stop_s:
         ends.append(f"{silence_stop_s:g} s without a click after the run")

@@ -25,6 +25,7 @@ import numpy as np
 from matplotlib.figure import Figure
 
 from popmeter.errors import PopmeterError
+from popmeter.safety import SAFETY_NOTE
 
 __all__ = ["PHASE_COLOURS", "typical_click_spectrum", "write_run_report"]
 
@@ -66,13 +67,6 @@ _SUMMARY_ROWS: tuple[tuple[str, str, str], ...] = (
     ("diaphragm_stiffness_kpa_per_ml", "diaphragm stiffness", "kPa/mL"),
 )
 
-_SAFETY_NOTE = (
-    "Running a boat means an open flame, a hot boiler and steam: test over a non-flammable "
-    "tray, keep water and spills away from mains-powered equipment, let the boiler cool before "
-    "touching it, and keep children supervised and away from the flame. Follow your local "
-    "codes and toy-safety regulations. popmeter measures sound; it does not certify that a "
-    "boat is safe."
-)
 
 
 def write_run_report(analysis: Any, out_dir: Path, *, audio_path: Path | None = None) -> Path:
@@ -755,7 +749,7 @@ def _page(analysis: Any, figures: list[tuple[str, str, str]], notes: list[str]) 
     else:
         parts.append("<p>None.</p>")
 
-    parts.append(f'<div class="safety"><strong>Safety.</strong> {_e(_SAFETY_NOTE)}</div>')
+    parts.append(f'<div class="safety"><strong>Safety.</strong> {_e(SAFETY_NOTE)}</div>')
     from popmeter import __version__
 
     parts.append(f'<p style="font-size:12px;color:#8a8172">popmeter {_e(__version__)}</p>')

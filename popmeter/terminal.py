@@ -18,6 +18,8 @@ from rich.panel import Panel
 from rich.table import Table
 from rich.text import Text
 
+from popmeter.safety import SAFETY_LINE
+
 #: Colours of popmeter's terminal views (our own palette: harbour blues,
 #: brass for the engine figures).
 ACCENT = "steel_blue1"
@@ -26,10 +28,6 @@ PASS_STYLE = "bold black on green3"
 FAIL_STYLE = "bold white on red3"
 ERROR_STYLE = "bold black on orange1"
 
-SAFETY_LINE = (
-    "Caution: open flame, hot boiler and steam. Supervise children; keep mains-powered "
-    "equipment away from the water. popmeter measures; it does not certify safety."
-)
 
 
 def fmt(value: Any, unit: str = "", digits: int = 2) -> str:

@@ -539,7 +539,7 @@ def test_sparkline_and_big_verdict_letters():
 
 
 def test_caution_line_names_flame_steam_children_and_mains():
-    text = live_view.CAUTION_LINE.lower()
+    text = live_view.SAFETY_LINE.lower()
     for word in ("flame", "steam", "children", "mains", "does not certify"):
         assert word in text
 
@@ -714,7 +714,7 @@ def test_listen_records_analyses_and_keeps_every_sample(fake_sd, tmp_path, capsy
 
     code, out, err = _run_listen(tmp_path, capsys)
     assert code == 0, err
-    assert live_view.CAUTION_LINE[:40] in out and "no click for 1.5 s" in out
+    assert live_view.SAFETY_LINE[:40] in out and "no click for 1.5 s" in out
     saved, rate = sf.read(tmp_path / "take.wav", dtype="float32")
     assert rate == 48000
     n = min(len(saved), len(fake_sd.source))
