@@ -332,11 +332,15 @@ class ClickDetector:
         self._pre = round(0.008 * fs)
         self._post = round(0.001 * fs)
         self._tail = round(0.020 * fs)
+        self._fine = round(0.0015 * fs)  # half-width of the broadband onset search
+        self._bp_sd_hz = 300.0  # width (1 sd) of the band used for the coarse onset
         self._nfft_ring = int(2 ** math.ceil(math.log2(self._tail)))
         self._tapers: dict[int, np.ndarray] = {}
         self._nfft_short = int(2 ** math.ceil(math.log2(1.5 * 0.006 * fs)))
+
         self._frame_span = self._n_fft * self._q
-        self.max_latency_s = (self._refr * self.hop + self._frame_span + self._tail) / fs
+        self.max_latency_s = (self._refr * self.hop + self._frame_span + self._tail
+                              + self._post + self._fine) / fs
         f_ring = np.arange(self._nfft_ring // 2 + 1) * fs / self._nfft_ring
         self._ring_bins = (int(np.searchsorted(f_ring, 0.8 * self._hp_corner())),
                            int(np.searchsorted(f_ring, min(12000.0, 0.45 * fs))))
@@ -678,7 +682,8 @@ class ClickDetector:
         ready: list[_Candidate] = []
         while self._pending:
             c = self._pending[0]
-            need = c.frame * self.hop + self._frame_span + self._tail + self._post
+            need = (c.frame * self.hop + self._frame_span + self._tail + self._post
+                    + self._fine)
             if need > total and not final:
                 break
             ready.append(self._pending.pop(0))
@@ -719,25 +724,27 @@ class ClickDetector:
         # warm-up | pre-onset noise | search region | ring tail
         search = self._frame_span + 3 * self.hop
         lead = self._tail + self._pre + 2 * self.hop
-        length = lead + search + self._tail + self._post
+        length = lead + search + self._tail + self._post + self._fine
         w0 = frames * self.hop - lead
         y = self._window(w0, length, high_passed=True)
-        # coarse: peak of |y| over the frame holding the rise
         s0 = lead
-        p = s0 + np.argmax(np.abs(y[:, s0:s0 + search]), axis=1)
-        # fine: AIC change point (Maeda 1985) on y[p - pre, p + post)
-        n = self._pre + self._post
-        aw = y[np.arange(k)[:, None], (p - self._pre)[:, None] + np.arange(n)[None, :]]
-        c1 = np.cumsum(aw, axis=1)
-        c2 = np.cumsum(aw * aw, axis=1)
-        kk = np.arange(1, n)[None, :]
-        s1, q1 = c1[:, :-1], c2[:, :-1]
-        s2, q2 = c1[:, -1:] - s1, c2[:, -1:] - q1
-        var1 = np.maximum(q1 / kk - (s1 / kk) ** 2, 1e-30)
-        var2 = np.maximum(q2 / (n - kk) - (s2 / (n - kk)) ** 2, 1e-30)
-        aic = kk * np.log(var1) + (n - kk - 1) * np.log(var2)
-        j = 2 + np.argmin(aic[:, 1:n - 4], axis=1)  # split after j samples
-        on_local = p - self._pre + j  # index in y rows of the onset
+        rows = np.arange(k)[:, None]
+        # coarse: the peak of the energy of the band where the candidate rang
+        # (zero-phase Gaussian band-pass by FFT, 1 sd = bp_sd_hz) within the
+        # frame holding the rise; in noise that band holds far more of the
+        # click than the broadband signal, whose own peak may be noise
+        fc = self._bin_hz[np.array([c.band for c in cands], dtype=np.int64)]
+        nseg = lead + search + self._post
+        nfft_bp = sp_fft.next_fast_len(nseg + self._pre, real=True)
+        fb = np.arange(nfft_bp // 2 + 1) * (fs / nfft_bp)
+        gain = np.exp(-0.5 * ((fb[None, :] - fc[:, None]) / self._bp_sd_hz) ** 2)
+        bp = sp_fft.irfft(sp_fft.rfft(y[:, :nseg], n=nfft_bp, axis=1) * gain.astype(np.float32),
+                          n=nfft_bp, axis=1)[:, :nseg]
+        pk = s0 + np.argmax(bp[:, s0:s0 + search] ** 2, axis=1)
+        # fine: AIC change point (Maeda 1985) on the broadband y[pk - pre, pk + post)
+        j = _aic_split(y[rows, (pk - self._pre)[:, None]
+                         + np.arange(self._pre + self._post)[None, :]])
+        on_local = pk - self._pre + j  # index in y rows of the onset
         onsets = w0 + on_local
         feats = self._features(y, on_local, onsets)
         clicks: list[Click] = []
@@ -912,6 +919,25 @@ class ClickDetector:
     def _hp_corner(self) -> float:
         """Lowest frequency (Hz) the refinement stream keeps: the high-pass corner."""
         return float(self._hp_hz)
+
+
+def _aic_split(aw: np.ndarray) -> np.ndarray:
+    """Per row, the sample that best splits it into two stationary segments.
+
+    Akaike-information-criterion change point (Maeda 1985; the two-segment
+    form of Sleeman & van Eck, PEPI 1999) computed with cumulative sums;
+    returns the length of the first segment (2 .. n - 4).
+    """
+    n = aw.shape[1]
+    c1 = np.cumsum(aw, axis=1)
+    c2 = np.cumsum(aw * aw, axis=1)
+    kk = np.arange(1, n)[None, :]
+    s1, q1 = c1[:, :-1], c2[:, :-1]
+    s2, q2 = c1[:, -1:] - s1, c2[:, -1:] - q1
+    var1 = np.maximum(q1 / kk - (s1 / kk) ** 2, 1e-30)
+    var2 = np.maximum(q2 / (n - kk) - (s2 / (n - kk)) ** 2, 1e-30)
+    aic = kk * np.log(var1) + (n - kk - 1) * np.log(var2)
+    return 2 + np.argmin(aic[:, 1:n - 4], axis=1)
 
 
 # ---------------------------------------------------------------------------
