@@ -406,16 +406,27 @@ def write_outputs(
     """Write the files asked for and print the summary (unless ``quiet``).
 
     Returns the paths written, keyed ``json``, ``csv`` and ``report``.
+    A path that cannot be written raises :class:`popmeter.errors.OutputError`
+    naming it.
     """
-    written: dict[str, Path] = {}
-    if json_path is not None:
-        written["json"] = write_json(analysis, json_path)
-    if csv_path is not None:
-        written["csv"] = write_csv(analysis, csv_path)
-    if report_dir is not None:
-        from popmeter.run_report import write_run_report
+    from popmeter.errors import output_error
 
-        written["report"] = write_run_report(analysis, Path(report_dir))
+    written: dict[str, Path] = {}
+    target: Any = None
+    try:
+        if json_path is not None:
+            target = json_path
+            written["json"] = write_json(analysis, json_path)
+        if csv_path is not None:
+            target = csv_path
+            written["csv"] = write_csv(analysis, csv_path)
+        if report_dir is not None:
+            from popmeter.run_report import write_run_report
+
+            target = report_dir
+            written["report"] = write_run_report(analysis, Path(report_dir))
+    except OSError as error:
+        raise output_error(target, error, folder=target is report_dir) from None
     if not quiet:
         from popmeter.terminal import print_analysis
 

@@ -275,6 +275,14 @@ def main(argv: Sequence[str] | None = None) -> int:
         else:
             print(f"popmeter {args.command}: error: {error}", file=sys.stderr)
         return error.exit_code
+    except OSError as error:
+        # a file or folder the user named cannot be read or written (missing
+        # folder, read-only disk, a file in the way): one line, not a traceback
+        if args.debug:
+            raise
+        where = f"{error.filename}: " if error.filename else ""
+        print(f"popmeter {args.command}: error: {where}{error.strerror or error}", file=sys.stderr)
+        return EXIT_USAGE
     except KeyboardInterrupt:
         if args.debug:
             raise

@@ -459,4 +459,10 @@ def model_report(profile_path: str | Path, *, json_path: str | Path | None = Non
             "tolerance_effect_pct": effect,
             "caution": SAFETY_LINE,
         }
-        Path(json_path).write_text(json.dumps(doc, indent=2) + "\n", encoding="utf-8")
+        from popmeter.errors import output_error
+
+        try:  # like `analyze --json`: a missing folder is created
+            Path(json_path).parent.mkdir(parents=True, exist_ok=True)
+            Path(json_path).write_text(json.dumps(doc, indent=2) + "\n", encoding="utf-8")
+        except OSError as error:
+            raise output_error(json_path, error) from None

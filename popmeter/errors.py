@@ -55,3 +55,28 @@ class DeviceError(PopmeterError):
 
 class UsageError(PopmeterError):
     """The command line or an API call was given contradictory arguments."""
+
+
+class OutputError(PopmeterError):
+    """An output file or folder cannot be written (missing or read-only
+    folder, a file in the way, a full disk)."""
+
+
+def output_error(path: object, error: OSError, *, folder: bool = False) -> OutputError:
+    """One-line :class:`OutputError` for ``error`` raised while writing ``path``.
+
+    Names the path the user gave (not a temporary file beside it) and, when a
+    file stands where a folder is needed, that file. ``folder`` is true when
+    ``path`` is meant to be a folder (a report directory); default False (a
+    file, so an existing folder there is the problem).
+    """
+    from pathlib import Path
+
+    target = Path(str(path))
+    for parent in target.parents:
+        if parent.exists() and not parent.is_dir():
+            return OutputError(f"{path}: cannot write ({parent} is a file, not a folder)")
+    if not folder and target.is_dir():
+        return OutputError(f"{path}: cannot write (it is a folder; give a file name)")
+    reason = error.strerror or str(error)
+    return OutputError(f"{path}: cannot write ({reason})")

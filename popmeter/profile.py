@@ -558,4 +558,10 @@ def write_profile(profile_or_raw: BoatProfile | dict[str, Any], path: str | Path
         comment: optional header comment (for example what calibration fitted).
     """
     raw = profile_or_raw.raw if isinstance(profile_or_raw, BoatProfile) else profile_or_raw
-    Path(path).write_text(dumps_toml(raw, comment=comment), encoding="utf-8")
+    from popmeter.errors import output_error
+
+    try:  # a missing folder is created, as for every other output
+        Path(path).parent.mkdir(parents=True, exist_ok=True)
+        Path(path).write_text(dumps_toml(raw, comment=comment), encoding="utf-8")
+    except OSError as error:
+        raise output_error(path, error) from None

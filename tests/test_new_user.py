@@ -1,0 +1,85 @@
+"""What a new user meets at the edges: one-line errors for outputs that cannot
+be written, bad option values, the history database a batch wrote, the batch
+CSV opened in a spreadsheet, and labels that say what they mean.
+
+Short generated recordings (8 kHz, a few seconds, fixed seeds); no accuracy is
+checked here (the detection, timeline and stiffness tests do that).
+"""
+
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import pytest
+
+from popmeter.cli import main
+from popmeter.errors import OutputError, output_error
+from popmeter.synth import simulate_to_file
+
+BUNDLE = Path(__file__).resolve().parent.parent / "synthetic_audio"
+BOAT = BUNDLE / "demo_boat.toml"
+
+
+@pytest.fixture(scope="module")
+def short_run(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    path = tmp_path_factory.mktemp("rec") / "unit-07.wav"
+    simulate_to_file(path, boat=BOAT, seed=5, duration_s=10.0, sample_rate_hz=8000)
+    return path
+
+
+def _one_error_line(capsys: pytest.CaptureFixture[str]) -> str:
+    err = capsys.readouterr().err
+    lines = err.strip().splitlines()
+    assert len(lines) == 1, err
+    assert "Traceback" not in err
+    return lines[0]
+
+
+# --- outputs that cannot be written -------------------------------------------
+
+
+def test_json_under_a_file_is_one_line_naming_both(short_run: Path, tmp_path: Path,
+                                                    capsys: pytest.CaptureFixture[str]) -> None:
+    blocker = tmp_path / "notes.txt"
+    blocker.write_text("not a folder\n")
+    target = blocker / "a.json"
+    code = main(["analyze", str(short_run), "--quiet", "--json", str(target)])
+    assert code == 2
+    line = _one_error_line(capsys)
+    assert str(target) in line and "is a file, not a folder" in line
+    assert ".part" not in line  # the user's path, not the temporary file beside it
+
+
+def test_json_onto_a_folder_says_so(short_run: Path, tmp_path: Path,
+                                    capsys: pytest.CaptureFixture[str]) -> None:
+    code = main(["analyze", str(short_run), "--quiet", "--csv", str(tmp_path)])
+    assert code == 2
+    line = _one_error_line(capsys)
+    assert str(tmp_path) in line and "folder" in line
+
+
+def test_output_error_for_a_report_folder_is_not_told_it_is_a_folder(tmp_path: Path) -> None:
+    err = output_error(tmp_path, PermissionError(13, "Permission denied"), folder=True)
+    assert isinstance(err, OutputError)
+    assert str(err) == f"{tmp_path}: cannot write (Permission denied)"
+
+
+def test_model_json_in_a_new_folder_is_created(tmp_path: Path) -> None:
+    out = tmp_path / "new" / "model.json"
+    assert main(["model", str(BOAT), "--json", str(out)]) == 0
+    assert json.loads(out.read_text())["schema"] == "popmeter.model/1"
+
+
+def test_unexpected_os_error_is_one_line(tmp_path: Path, capsys: pytest.CaptureFixture[str],
+                                         monkeypatch: pytest.MonkeyPatch) -> None:
+    # any OSError that escapes a command (here: the model cannot read its file)
+    # is one line naming the file, exit 2, no traceback
+    import popmeter.engine
+
+    def refuse(*args: object, **kwargs: object) -> None:
+        raise PermissionError(13, "Permission denied", "/somewhere/boat.toml")
+
+    monkeypatch.setattr(popmeter.engine, "model_report", refuse)
+    assert main(["model", "boat.toml"]) == 2
+    assert _one_error_line(capsys) == "popmeter model: error: /somewhere/boat.toml: Permission denied"
