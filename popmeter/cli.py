@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import argparse
 import sys
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from pathlib import Path
 
 from popmeter.errors import ConfigError, PopmeterError, UsageError
@@ -39,6 +39,21 @@ def _positive_float(text: str) -> float:
     if not value > 0:
         raise argparse.ArgumentTypeError(f"expected a positive number, got {text!r}")
     return value
+
+
+def _whole_number(minimum: int) -> Callable[[str], int]:
+    """An argparse type: a whole number of at least ``minimum``."""
+
+    def parse(text: str) -> int:
+        try:
+            value = int(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"expected a whole number, got {text!r}")
+        if value < minimum:
+            raise argparse.ArgumentTypeError(f"expected a whole number of at least {minimum}, got {text!r}")
+        return value
+
+    return parse
 
 
 def _add_output_options(p: argparse.ArgumentParser) -> None:
@@ -103,7 +118,7 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--report", type=Path, metavar="DIR", help="write charts (PNG) and an HTML page into DIR")
 
     p = sub.add_parser("model", help="forward model of a boat profile: predicted rate, ring, sensitivities")
-    p.add_argument("profile", type=Path, metavar="B.toml")
+    p.add_argument("profile", type=Path, metavar="B.toml", help="boat profile (TOML; keys in the README)")
     p.add_argument("--json", type=Path, metavar="OUT", help="write the prediction as JSON")
 
     p = sub.add_parser("calibrate", help="fit the model correction on reference units with a known-good diaphragm")
@@ -114,16 +129,17 @@ def build_parser() -> argparse.ArgumentParser:
     p = sub.add_parser("simulate", help="write a synthetic recording with its ground truth beside it")
     p.add_argument("--out", type=Path, required=True, metavar="FILE", help="audio file to write (format from the extension)")
     p.add_argument("--boat", type=Path, metavar="B.toml", help="boat profile to simulate (default: a built-in demo boat)")
-    p.add_argument("--seed", type=int, default=0, help="random seed (default 0)")
+    p.add_argument("--seed", type=_whole_number(0), default=0, help="random seed (default 0)")
     p.add_argument("--duration", type=_positive_float, default=60.0, metavar="S", help="length in seconds (default 60)")
     p.add_argument("--samplerate", type=int, default=48000, metavar="R", help="sample rate in Hz (default 48000)")
-    p.add_argument("--channels", type=int, default=1, metavar="N", help="channel count (default 1)")
+    p.add_argument("--channels", type=_whole_number(1), default=1, metavar="N", help="channel count (default 1)")
     p.add_argument("--snr", type=float, default=30.0, metavar="DB", help="click-to-noise ratio in dB (default 30)")
-    p.add_argument("--clicks-per-cycle", type=int, choices=(1, 2), default=1)
+    p.add_argument("--clicks-per-cycle", type=int, choices=(1, 2), default=1,
+                   help="clicks per engine cycle (default 1; 2: a second, weaker click of another timbre)")
     p.add_argument("--rate", type=_positive_float, metavar="HZ", help="steady cycle rate (default: from the boat profile's model)")
     p.add_argument("--thickness-factor", type=_positive_float, default=1.0, metavar="F",
                    help="true diaphragm thickness as a multiple of the profile's nominal (default 1)")
-    p.add_argument("--stalls", type=int, default=0, metavar="N", help="stalls during the fade (default 0)")
+    p.add_argument("--stalls", type=_whole_number(0), default=0, metavar="N", help="stalls during the fade (default 0)")
     p.add_argument("--distractors", default="", metavar="LIST",
                    help="comma-separated extra sounds: match,speech,splash,knock,hum")
     p.add_argument("--reverb", action="store_true", help="add room reverberation")
@@ -211,10 +227,10 @@ def _cmd_calibrate(args: argparse.Namespace) -> int:
 
 
 def _cmd_simulate(args: argparse.Namespace) -> int:
-    from popmeter.synth import simulate_to_file
+    from popmeter.synth import simulate_to_file, truth_path_for
 
     distractors = tuple(d.strip() for d in args.distractors.split(",") if d.strip())
-    simulate_to_file(
+    written = simulate_to_file(
         args.out,
         boat=args.boat,
         seed=args.seed,
@@ -229,6 +245,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
         distractors=distractors,
         reverb=args.reverb,
     )
+    print(f"wrote {written} ({args.duration:g} s at {args.samplerate} Hz, {args.channels} channel(s)) "
+          f"and its ground truth {truth_path_for(written)}")
     return EXIT_OK
 
 

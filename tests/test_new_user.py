@@ -83,3 +83,24 @@ def test_unexpected_os_error_is_one_line(tmp_path: Path, capsys: pytest.CaptureF
     monkeypatch.setattr(popmeter.engine, "model_report", refuse)
     assert main(["model", "boat.toml"]) == 2
     assert _one_error_line(capsys) == "popmeter model: error: /somewhere/boat.toml: Permission denied"
+
+
+# --- option values ------------------------------------------------------------
+
+
+@pytest.mark.parametrize("option,value", [("--seed", "-1"), ("--stalls", "-3"), ("--channels", "0")])
+def test_simulate_refuses_bad_counts_before_any_work(option: str, value: str, tmp_path: Path,
+                                                     capsys: pytest.CaptureFixture[str]) -> None:
+    with pytest.raises(SystemExit) as stop:
+        main(["simulate", "--out", str(tmp_path / "x.wav"), option, value])
+    assert stop.value.code == 2
+    assert option in capsys.readouterr().err
+    assert not (tmp_path / "x.wav").exists()
+
+
+def test_simulate_says_what_it_wrote(tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    out = tmp_path / "sub" / "s.flac"
+    assert main(["simulate", "--out", str(out), "--duration", "2", "--samplerate", "8000"]) == 0
+    text = capsys.readouterr().out
+    assert str(out) in text and "s.truth.json" in text
+    assert out.exists() and (out.parent / "s.truth.json").exists()
