@@ -90,6 +90,7 @@ def run_demo(*, out_dir: str | os.PathLike[str] = "popmeter-demo-output",
         passed = sum(1 for u in result.units if u.verdict.status == "PASS")
         console.print(f"{passed} of {len(result.units)} units passed "
                       "(the batch holds defective units on purpose).")
+        console.print(f"Trends across batches: popmeter history --db {out / 'batch' / 'history.sqlite'}")
 
     console.print(Rule("reports", style=ACCENT))
     for name, path in reports:

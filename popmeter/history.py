@@ -244,7 +244,17 @@ class History:
             if database and database != ":memory:":
                 path = Path(database)
                 if not create and not path.exists():
-                    raise HistoryError(f"{path}: no history database here (run `popmeter batch` first or give --db)")
+                    if db is None:
+                        raise HistoryError(
+                            f"{path}: no history database here; `popmeter batch --out OUT` keeps "
+                            "its history in OUT/history.sqlite (or in its --db): give that path "
+                            "with --db, e.g. --db OUT/history.sqlite"
+                        )
+                    raise HistoryError(
+                        f"{path}: no history database here (run `popmeter batch` with this --db first)"
+                    )
+                if path.is_dir():
+                    raise HistoryError(f"{path}: is a folder; give the database file (e.g. {path}/history.sqlite)")
                 if not path.parent.is_dir():
                     raise HistoryError(f"{path}: folder {path.parent} does not exist")
             self.engine = sa.create_engine(
@@ -266,7 +276,7 @@ class History:
         self.schema = schema
         try:
             self._migrate(schema, create=create)
-        except sa.exc.OperationalError as error:
+        except sa.exc.DatabaseError as error:  # also a file that is not a database
             raise HistoryError(f"{self.display_url}: cannot open ({_first_line(error)})") from None
         # hold no connection between uses: batch workers are forked from this
         # process and must not share a live database connection

@@ -104,3 +104,31 @@ def test_simulate_says_what_it_wrote(tmp_path: Path, capsys: pytest.CaptureFixtu
     text = capsys.readouterr().out
     assert str(out) in text and "s.truth.json" in text
     assert out.exists() and (out.parent / "s.truth.json").exists()
+
+
+# --- history ------------------------------------------------------------------
+
+
+def test_history_without_db_names_where_a_batch_keeps_it(tmp_path: Path,
+                                                         capsys: pytest.CaptureFixture[str],
+                                                         monkeypatch: pytest.MonkeyPatch) -> None:
+    monkeypatch.chdir(tmp_path)
+    assert main(["history"]) == 2
+    line = _one_error_line(capsys)
+    assert "--db" in line and "OUT/history.sqlite" in line
+    assert not (tmp_path / "history.sqlite").exists()  # reading never creates one
+
+
+def test_history_on_a_file_that_is_not_a_database(tmp_path: Path,
+                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    notes = tmp_path / "notes.txt"
+    notes.write_text("shift notes, not a database\n" * 20)
+    assert main(["history", "--db", str(notes)]) == 2
+    line = _one_error_line(capsys)
+    assert "notes.txt" in line and "not a database" in line
+
+
+def test_history_on_a_folder_points_at_the_file(tmp_path: Path,
+                                                capsys: pytest.CaptureFixture[str]) -> None:
+    assert main(["history", "--db", str(tmp_path)]) == 2
+    assert "history.sqlite" in _one_error_line(capsys)
