@@ -427,10 +427,33 @@ def batch_statistics(units: list[UnitResult], spec: Spec) -> dict[str, MetricSta
     }
 
 
+#: First characters that make a spreadsheet read a cell as a formula (OWASP,
+#: "CSV Injection"): ``=``, ``+``, ``-``, ``@``, and tab / carriage return.
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def neutralise_cell(text: str) -> str:
+    """A text cell made safe to open in a spreadsheet.
+
+    A text that starts with ``=``, ``+``, ``-``, ``@``, a tab or a carriage
+    return (serials, operators and file names come from the user's manifest)
+    gets a leading ``'`` so that a spreadsheet shows it as text instead of
+    running it as a formula (OWASP, "CSV Injection"). Numbers are never passed
+    here, so a negative drift stays a number.
+    """
+    return "'" + text if text.startswith(_FORMULA_START) else text
+
+
 def write_results_csv(result: BatchResult, path: Path) -> Path:
     """``results.csv``: serial, verdict, reasons, one column per summary
     metric (SI names as in the analysis JSON), then file, station, operator,
-    recorded_at, report."""
+    recorded_at, report.
+
+    Text cells (serial, verdict, reasons, file, station, operator,
+    recorded_at, report) that a spreadsheet would run as a formula are
+    prefixed with ``'`` (see :func:`neutralise_cell`); the metric columns are
+    numbers and are written as they are. ``results.json`` keeps the texts
+    unchanged."""
     extra = ("file", "station", "operator", "recorded_at", "report")
     with path.open("w", newline="", encoding="utf-8") as handle:
         writer = csv.writer(handle)
@@ -440,9 +463,10 @@ def write_results_csv(result: BatchResult, path: Path) -> Path:
             for key in SUMMARY_KEYS:
                 v = _json_value(unit.summary.get(key))
                 values.append("" if v is None else repr(v) if isinstance(v, float) else v)
+            texts = [unit.serial, unit.status, "; ".join(unit.verdict.reasons)]
+            tail = ["" if getattr(unit, k) is None else str(getattr(unit, k)) for k in extra]
             writer.writerow(
-                [unit.serial, unit.status, "; ".join(unit.verdict.reasons), *values,
-                 *("" if getattr(unit, k) is None else getattr(unit, k) for k in extra)]
+                [*(neutralise_cell(x) for x in texts), *values, *(neutralise_cell(x) for x in tail)]
             )
     return path
 
@@ -769,6 +793,7 @@ __all__ = [
     "UnitResult",
     "batch_statistics",
     "collect_units",
+    "neutralise_cell",
     "run_batch",
     "safe_folder_name",
     "write_results_csv",

@@ -8,13 +8,16 @@ checked here (the detection, timeline and stiffness tests do that).
 
 from __future__ import annotations
 
+import csv
 import json
 from pathlib import Path
 
 import pytest
 
+from popmeter.batch import BatchResult, UnitResult, neutralise_cell, write_results_csv
 from popmeter.cli import main
 from popmeter.errors import OutputError, output_error
+from popmeter.qc_spec import Verdict, load_spec
 from popmeter.synth import simulate_to_file
 
 BUNDLE = Path(__file__).resolve().parent.parent / "synthetic_audio"
@@ -132,3 +135,34 @@ def test_history_on_a_folder_points_at_the_file(tmp_path: Path,
                                                 capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["history", "--db", str(tmp_path)]) == 2
     assert "history.sqlite" in _one_error_line(capsys)
+
+
+# --- results.csv in a spreadsheet ---------------------------------------------
+
+
+def test_neutralise_cell() -> None:
+    # OWASP, "CSV Injection": cells starting with = + - @ tab CR are formulas
+    for text in ("=1+1", "+41 79", "-T2", "@bob", "\tx", "\rx"):
+        assert neutralise_cell(text) == "'" + text
+    for text in ("KW-001", "", "12.5", "'=already"):
+        assert neutralise_cell(text) == text
+
+
+def test_results_csv_neutralises_text_not_numbers(tmp_path: Path) -> None:
+    spec_path = tmp_path / "spec.toml"
+    spec_path.write_text('name = "s"\n[limits.steady_rate_hz]\nmin = 10\nmax = 14\n')
+    unit = UnitResult(
+        serial='=HYPERLINK("http://example.invalid";"x")', position=0,
+        verdict=Verdict(status="FAIL", reasons=["drift_pct_per_min = -3 below min -2"]),
+        summary={"steady_rate_hz": 12.5, "drift_pct_per_min": -2.5},
+        file="+unit.wav", station="-T2", operator="@bob", recorded_at="2026-11-30",
+    )
+    result = BatchResult(batch_id="b", spec=load_spec(spec_path), source="x", out_dir=tmp_path,
+                         units=[unit], stats={})
+    path = write_results_csv(result, tmp_path / "results.csv")
+    (row,) = list(csv.DictReader(path.open(encoding="utf-8")))
+    assert row["serial"] == "'" + unit.serial
+    assert row["file"] == "'+unit.wav" and row["station"] == "'-T2" and row["operator"] == "'@bob"
+    assert row["recorded_at"] == "2026-11-30" and row["verdict"] == "FAIL"
+    assert row["drift_pct_per_min"] == "-2.5"  # a number stays a number
+    assert row["steady_rate_hz"] == "12.5"
