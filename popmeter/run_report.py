@@ -26,6 +26,7 @@ from matplotlib.figure import Figure
 
 from popmeter.errors import PopmeterError
 from popmeter.safety import SAFETY_NOTE
+from popmeter.terminal import channel_label
 
 __all__ = ["PHASE_COLOURS", "typical_click_spectrum", "write_run_report"]
 
@@ -197,6 +198,15 @@ def _shade_phases(ax: Any, phases: Sequence[Any], *, alpha: float = 0.16) -> Non
         )
 
 
+def _label_phases(ax: Any, phases: Sequence[Any], duration_s: float) -> None:
+    """Write each phase's name at the top of its band (wide enough bands only),
+    so that the figure reads without the page around it."""
+    for p in phases:
+        if duration_s > 0 and (p.end_s - p.start_s) / duration_s >= 0.05:
+            ax.text(0.5 * (p.start_s + p.end_s), 0.97, p.name, transform=ax.get_xaxis_transform(),
+                    ha="center", va="top", fontsize=7, color=_INK, alpha=0.75)
+
+
 def _save(fig: Figure, path: Path) -> None:
     fig.savefig(path, format="png", facecolor=fig.get_facecolor())
 
@@ -206,9 +216,10 @@ def _rate_figure(tl: Any, duration_s: float, path: Path) -> None:
     ax = fig.add_subplot(1, 1, 1)
     _style(ax)
     _shade_phases(ax, tl.phases)
-    for st in tl.stalls:
+    for i, st in enumerate(tl.stalls):
         ax.axvspan(
-            st.start_s, st.end_s, facecolor="none", edgecolor=_STALL, hatch="////", linewidth=0.8
+            st.start_s, st.end_s, facecolor="none", edgecolor=_STALL, hatch="////", linewidth=0.8,
+            label=f"stall ({len(tl.stalls)})" if i == 0 else None,
         )
     if tl.cycles:
         t = np.array([c.start_s for c in tl.cycles])
@@ -230,21 +241,14 @@ def _rate_figure(tl: Any, duration_s: float, path: Path) -> None:
             ax.plot(ts, rs, color=PHASE_COLOURS["steady"], linewidth=1.6, label="smoothed")
         steady = tl.summary.get("steady_rate_hz")
         if steady is not None:
-            ax.axhline(steady, color=_INK, linestyle=(0, (4, 3)), linewidth=0.8)
+            ax.axhline(steady, color=_INK, linestyle=(0, (4, 3)), linewidth=0.8,
+                       label=f"steady rate {steady:.2f} Hz")
         top = float(np.percentile(r, 99.5)) * 1.15
         ax.set_ylim(0, max(top, 1.0))
-        ax.legend(loc="lower center", fontsize=7, frameon=False, ncol=3)
+        ax.legend(loc="lower center", fontsize=7, frameon=False, ncol=5)
     else:
         ax.text(0.5, 0.5, "no cycles", transform=ax.transAxes, ha="center", color=_INK)
-    for st in tl.stalls:
-        ax.annotate(
-            "stall",
-            (0.5 * (st.start_s + st.end_s), ax.get_ylim()[1]),
-            ha="center",
-            va="top",
-            fontsize=7,
-            color=_STALL,
-        )
+    _label_phases(ax, tl.phases, duration_s)
     ax.set_xlim(0, duration_s)
     ax.set_xlabel("time in recording (s)", color=_INK, fontsize=9)
     ax.set_ylabel("cycle rate (Hz)", color=_INK, fontsize=9)
@@ -637,18 +641,21 @@ def _kv_table(rows: Sequence[tuple[str, str]]) -> str:
     return f"<table>{body}</table>"
 
 
+#: Row label and unit of each interval in the stiffness JSON.
+_STIFFNESS_LABELS: dict[str, tuple[str, str]] = {
+    "diaphragm_stiffness_kpa_per_ml": ("diaphragm stiffness", "kPa/mL"),
+    "diaphragm_rigidity_mn_m": ("diaphragm rigidity D", "mN m"),
+    "equivalent_thickness_mm": ("equivalent thickness", "mm"),
+    "gas_volume_ml": ("effective gas volume", "mL"),
+}
+
+
 def _stiffness_rows(est: Any) -> list[tuple[str, str]]:
     rows: list[tuple[str, str]] = [("method", _e(est.method))]
     doc = est.to_json()
     for key, val in doc.items():
         if isinstance(val, dict) and {"value", "low", "high"} <= set(val):
-            unit = key.rsplit("_", 1)[-1] if "_" in key else ""
-            unit = {"ml": "mL", "mm": "mm"}.get(unit, "")
-            if key.endswith("kpa_per_ml"):
-                unit = "kPa/mL"
-            elif key.endswith("mn_m"):
-                unit = "mN m"
-            name = key.replace("_", " ")
+            name, unit = _STIFFNESS_LABELS.get(key, (key.replace("_", " "), ""))
             if val["value"] is None:
                 rows.append((name, _fmt(None, "")))
             else:
@@ -685,7 +692,7 @@ def _page(analysis: Any, figures: list[tuple[str, str, str]], notes: list[str]) 
     sub = [
         f"{src.duration_s:.1f} s",
         f"{src.sample_rate_hz} Hz",
-        f"channel {src.channel_used + 1} of {src.channels}",
+        channel_label(src.channel_used, src.channels),
         f"{len(det.clicks)} clicks",
         f"{det.clicks_per_cycle} click(s) per cycle",
     ]

@@ -30,6 +30,14 @@ ERROR_STYLE = "bold black on orange1"
 
 
 
+def channel_label(channel_used: int, channels: int) -> str:
+    """The channel analysed, counted from 0 like ``--channel`` and the JSON's
+    ``channel_used``: ``mono`` or ``channel 1 of 0-1``."""
+    if channels <= 1:
+        return "mono"
+    return f"channel {channel_used} of 0-{channels - 1}"
+
+
 def fmt(value: Any, unit: str = "", digits: int = 2) -> str:
     """Format a number with its unit; ``None``/NaN become ``n/a``."""
     if value is None:
@@ -70,8 +78,8 @@ def analysis_renderable(analysis: Any, *, written: dict[str, Path] | None = None
     head = Text()
     head.append(Path(src.path).name if src.path else "(stream)", style=f"bold {ACCENT}")
     head.append(
-        f"   {fmt(src.duration_s, 's', 1)} at {src.sample_rate_hz} Hz, channel "
-        f"{src.channel_used + 1} of {src.channels}   {len(det.clicks)} clicks, "
+        f"   {fmt(src.duration_s, 's', 1)} at {src.sample_rate_hz} Hz, "
+        f"{channel_label(src.channel_used, src.channels)}   {len(det.clicks)} clicks, "
         f"{s.get('cycles') or 0} cycles, {det.clicks_per_cycle} click(s) per cycle"
     )
     if det.rejected:

@@ -19,6 +19,7 @@ from popmeter.cli import main
 from popmeter.errors import OutputError, output_error
 from popmeter.qc_spec import Verdict, load_spec
 from popmeter.synth import simulate_to_file
+from popmeter.terminal import channel_label
 
 BUNDLE = Path(__file__).resolve().parent.parent / "synthetic_audio"
 BOAT = BUNDLE / "demo_boat.toml"
@@ -166,3 +167,45 @@ def test_results_csv_neutralises_text_not_numbers(tmp_path: Path) -> None:
     assert row["recorded_at"] == "2026-11-30" and row["verdict"] == "FAIL"
     assert row["drift_pct_per_min"] == "-2.5"  # a number stays a number
     assert row["steady_rate_hz"] == "12.5"
+
+
+# --- labels -------------------------------------------------------------------
+
+
+def test_channel_label_counts_from_zero_like_the_option() -> None:
+    assert channel_label(0, 1) == "mono"
+    assert channel_label(1, 2) == "channel 1 of 0-1"
+
+
+def test_terminal_and_report_say_the_channel_as_channel_accepts_it(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    stereo = tmp_path / "st.wav"
+    simulate_to_file(stereo, boat=BOAT, seed=3, duration_s=8.0, sample_rate_hz=8000, channels=2)
+    assert main(["analyze", str(stereo), "--channel", "1", "--boat", str(BOAT),
+                 "--report", str(tmp_path / "rep")]) == 0
+    assert "channel 1 of 0-1" in capsys.readouterr().out
+    page = (tmp_path / "rep" / "index.html").read_text(encoding="utf-8")
+    assert "channel 1 of 0-1" in page
+    # the stiffness table speaks words and units, not JSON key names
+    assert "kpa per ml" not in page and "mn m" not in page
+    assert "effective gas volume" in page
+
+
+def test_recording_without_clicks_is_zero_clicks_and_a_warning(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    import numpy as np
+    import soundfile as sf
+
+    noise = tmp_path / "noise.wav"
+    rng = np.random.default_rng(0)
+    sf.write(noise, (0.05 * rng.standard_normal(8000 * 3)).astype("float32"), 8000)
+    out = tmp_path / "noise.json"
+    assert main(["analyze", str(noise), "--quiet", "--json", str(out)]) == 0
+    doc = json.loads(out.read_text())
+    assert doc["clicks"] == [] and doc["summary"]["steady_rate_hz"] is None
+    assert any("no clicks" in w for w in doc["warnings"])
+    # digital silence is refused by the loader: there is nothing to listen to
+    silent = tmp_path / "silent.wav"
+    sf.write(silent, np.zeros(8000 * 3, dtype="float32"), 8000)
+    assert main(["analyze", str(silent), "--quiet"]) == 2
+    assert "silent" in _one_error_line(capsys)
