@@ -31,6 +31,7 @@ from matplotlib.figure import Figure
 from popmeter.errors import UsageError
 from popmeter.qc_spec import SUMMARY_KEYS
 from popmeter.qc_stats import IndividualsChart, individuals_chart
+from popmeter.run_report import SUMMARY_LABELS, metric_axis_label
 from popmeter.safety import SAFETY_NOTE
 
 if TYPE_CHECKING:
@@ -83,8 +84,10 @@ def histogram_figure(
                         ha="center", va="bottom", fontsize=8)
     if target is not None:
         ax.axvline(target, color="#333333", linestyle="--", linewidth=1.0)
-    ax.set_xlabel(metric)
-    ax.set_ylabel("units")
+        ax.annotate("target", (target, 1.0), xycoords=("data", "axes fraction"), color="#333333",
+                    ha="center", va="bottom", fontsize=8)
+    ax.set_xlabel(metric_axis_label(metric))
+    ax.set_ylabel("number of units")
     ax.spines[["top", "right"]].set_visible(False)
     fig.tight_layout()
     return fig
@@ -110,12 +113,16 @@ def control_chart_figure(
     ax, mx = fig.subplots(2, 1, sharex=True, gridspec_kw={"height_ratios": [2, 1]})
     x = np.arange(chart.values.size)
     ax.plot(x, chart.values, "-o", color="#35608a", markersize=3.5, linewidth=1)
-    ax.axhline(chart.center, color="#333333", linewidth=1)
-    for y in (chart.ucl, chart.lcl):
-        ax.axhline(y, color="#8a5a00", linestyle="--", linewidth=1)
+    ax.axhline(chart.center, color="#333333", linewidth=1, label="centre")
+    for i, y in enumerate((chart.ucl, chart.lcl)):
+        ax.axhline(y, color="#8a5a00", linestyle="--", linewidth=1,
+                   label="control limits (3 sigma)" if i == 0 else None)
+    spec_drawn = False
     for y in (lsl, usl):
         if y is not None:
-            ax.axhline(y, color="#b3261e", linestyle=":", linewidth=1.2)
+            ax.axhline(y, color="#b3261e", linestyle=":", linewidth=1.2,
+                       label=None if spec_drawn else "spec limits")
+            spec_drawn = True
     flagged: dict[int, list[str]] = {}
     for viol in chart.violations:
         if viol.chart == "X":
@@ -124,7 +131,8 @@ def control_chart_figure(
         ax.plot(i, chart.values[i], "o", color="#b3261e", markersize=6)
         ax.annotate(",".join(sorted(set(rules))), (i, chart.values[i]), textcoords="offset points",
                     xytext=(0, 6), ha="center", fontsize=7, color="#b3261e")
-    ax.set_ylabel(metric)
+    ax.set_ylabel(metric_axis_label(metric), fontsize=8)
+    ax.legend(loc="upper left", bbox_to_anchor=(1.0, 1.0), fontsize=7, frameon=False)
     ax.set_title(
         f"individuals: centre {_fmt(chart.center)}, limits {_fmt(chart.lcl)} … {_fmt(chart.ucl)}",
         fontsize=9,
@@ -135,7 +143,8 @@ def control_chart_figure(
     for viol in chart.violations:
         if viol.chart == "MR":
             mx.plot(viol.index, chart.mr[viol.index - 1], "o", color="#b3261e", markersize=6)
-    mx.set_ylabel("moving range")
+    unit = SUMMARY_LABELS.get(metric, ("", ""))[1]
+    mx.set_ylabel(f"moving range ({unit})" if unit else "moving range", fontsize=8)
     for b in boundaries or []:
         for axis in (ax, mx):
             axis.axvline(b - 0.5, color="#bbbbbb", linewidth=0.8)

@@ -28,7 +28,8 @@ from popmeter.errors import PopmeterError
 from popmeter.safety import SAFETY_NOTE
 from popmeter.terminal import channel_label
 
-__all__ = ["PHASE_COLOURS", "typical_click_spectrum", "write_run_report"]
+__all__ = ["PHASE_COLOURS", "SUMMARY_LABELS", "metric_axis_label", "typical_click_spectrum",
+           "write_run_report"]
 
 #: One colour per phase, used in every figure and in the phase strip.
 PHASE_COLOURS: dict[str, str] = {
@@ -68,6 +69,21 @@ _SUMMARY_ROWS: tuple[tuple[str, str, str], ...] = (
     ("diaphragm_stiffness_kpa_per_ml", "diaphragm stiffness", "kPa/mL"),
 )
 
+
+#: Readable label and unit of each summary metric, for figures and tables
+#: elsewhere (the batch and history charts).
+SUMMARY_LABELS: dict[str, tuple[str, str]] = {key: (label, unit) for key, label, unit in _SUMMARY_ROWS}
+
+
+def metric_axis_label(metric: str) -> str:
+    """Axis label of a summary metric in words with its unit, e.g.
+    ``steady cycle rate, median (Hz)``; an unknown key is returned as it is."""
+    if metric not in SUMMARY_LABELS:
+        return metric
+    label, unit = SUMMARY_LABELS[metric]
+    if label.endswith(")") and " (" in label:  # "rate (median)" -> "rate, median"
+        label = label[:-1].replace(" (", ", ", 1)
+    return f"{label} ({unit})" if unit else label
 
 
 def write_run_report(analysis: Any, out_dir: Path, *, audio_path: Path | None = None) -> Path:

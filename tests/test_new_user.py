@@ -209,3 +209,32 @@ def test_recording_without_clicks_is_zero_clicks_and_a_warning(
     sf.write(silent, np.zeros(8000 * 3, dtype="float32"), 8000)
     assert main(["analyze", str(silent), "--quiet"]) == 2
     assert "silent" in _one_error_line(capsys)
+
+
+# --- batch and history figures ------------------------------------------------
+
+
+def test_batch_figures_say_what_their_lines_and_axes_are() -> None:
+    import numpy as np
+
+    from popmeter.batch_report import control_chart_figure, histogram_figure
+    from popmeter.qc_stats import individuals_chart
+    from popmeter.run_report import metric_axis_label
+
+    assert metric_axis_label("steady_rate_hz") == "steady cycle rate, median (Hz)"
+    assert metric_axis_label("diaphragm_stiffness_kpa_per_ml") == "diaphragm stiffness (kPa/mL)"
+    assert metric_axis_label("no_such_metric") == "no_such_metric"
+
+    values = np.array([12.4, 12.6, 12.3, 10.7, 13.7, 12.4, 12.4])
+    fig = control_chart_figure(individuals_chart(values), metric="steady_rate_hz",
+                               lsl=11.5, usl=13.3)
+    top, bottom = fig.axes
+    legend = [t.get_text() for t in top.get_legend().get_texts()]
+    assert legend == ["centre", "control limits (3 sigma)", "spec limits"]
+    assert top.get_ylabel() == "steady cycle rate, median (Hz)"
+    assert bottom.get_ylabel() == "moving range (Hz)"
+
+    hist = histogram_figure(values, metric="steady_rate_hz", lsl=11.5, usl=13.3, target=12.4)
+    (ax,) = hist.axes
+    assert ax.get_xlabel() == "steady cycle rate, median (Hz)"
+    assert {t.get_text() for t in ax.texts} == {"min", "max", "target"}
