@@ -77,16 +77,21 @@ def build_parser() -> argparse.ArgumentParser:
     )
     parser.add_argument("--debug", action="store_true", help="show tracebacks for errors")
     parser.add_argument("--version", action="store_true", help="print the version and exit")
+    # --debug is also accepted after the command (`popmeter analyze F --debug`);
+    # SUPPRESS keeps a sub-command from resetting a --debug given before it
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                        help="show tracebacks for errors")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
 
-    p = sub.add_parser("analyze", help="analyse one recording")
+    p = sub.add_parser("analyze", parents=[common], help="analyse one recording")
     p.add_argument("file", type=Path, help="recording (WAV, FLAC, OGG, MP3, AIFF; M4A and others through ffmpeg)")
     _add_analysis_options(p)
     _add_output_options(p)
     p.add_argument("--spec", type=Path, metavar="S.toml", help="QC spec: judge the run PASS/FAIL (exit code 1 on FAIL)")
     p.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
-    p = sub.add_parser("listen", help="record live at the test tank and analyse the run")
+    p = sub.add_parser("listen", parents=[common], help="record live at the test tank and analyse the run")
     p.add_argument("--device", help="input device index or name (see `popmeter devices`)")
     p.add_argument("--samplerate", type=int, metavar="R", help="sample rate in Hz (default: 48000, or the device default)")
     p.add_argument("--channel", type=int, metavar="N", help="input channel to analyse, from 0 (default 0)")
@@ -101,9 +106,9 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--report", type=Path, metavar="DIR", help="write the HTML report into DIR")
     p.add_argument("--no-view", action="store_true", help="no live view (plain progress lines)")
 
-    sub.add_parser("devices", help="list audio input devices that `listen` can use")
+    sub.add_parser("devices", parents=[common], help="list audio input devices that `listen` can use")
 
-    p = sub.add_parser("batch", help="judge a production batch against a QC spec")
+    p = sub.add_parser("batch", parents=[common], help="judge a production batch against a QC spec")
     p.add_argument("source", type=Path, metavar="DIR_OR_MANIFEST", help="folder of recordings (serial = file name stem) or manifest CSV")
     p.add_argument("--spec", type=Path, required=True, metavar="S.toml", help="QC spec")
     p.add_argument("--boat", type=Path, metavar="B.toml", help="boat profile (needed for stiffness limits)")
@@ -112,21 +117,21 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--db", metavar="URL", help="history database URL or SQLite file (default: OUT/history.sqlite)")
     p.add_argument("--batch-id", metavar="ID", help="name of the batch in the history (default: the folder or manifest name)")
 
-    p = sub.add_parser("history", help="trends across batches: control charts and rule violations")
+    p = sub.add_parser("history", parents=[common], help="trends across batches: control charts and rule violations")
     p.add_argument("--db", metavar="URL", help="history database URL or SQLite file (default: ./history.sqlite)")
     p.add_argument("--metric", metavar="NAME", help="one summary metric (default: every metric in the history)")
     p.add_argument("--report", type=Path, metavar="DIR", help="write charts (PNG) and an HTML page into DIR")
 
-    p = sub.add_parser("model", help="forward model of a boat profile: predicted rate, ring, sensitivities")
+    p = sub.add_parser("model", parents=[common], help="forward model of a boat profile: predicted rate, ring, sensitivities")
     p.add_argument("profile", type=Path, metavar="B.toml", help="boat profile (TOML; keys in the README)")
     p.add_argument("--json", type=Path, metavar="OUT", help="write the prediction as JSON")
 
-    p = sub.add_parser("calibrate", help="fit the model correction on reference units with a known-good diaphragm")
+    p = sub.add_parser("calibrate", parents=[common], help="fit the model correction on reference units with a known-good diaphragm")
     p.add_argument("files", type=Path, nargs="+", metavar="FILE", help="recordings of reference units")
     p.add_argument("--boat", type=Path, required=True, metavar="B.toml", help="boat profile of the reference units")
     p.add_argument("--out", type=Path, required=True, metavar="B_CAL.toml", help="where to write the calibrated copy of the profile")
 
-    p = sub.add_parser("simulate", help="write a synthetic recording with its ground truth beside it")
+    p = sub.add_parser("simulate", parents=[common], help="write a synthetic recording with its ground truth beside it")
     p.add_argument("--out", type=Path, required=True, metavar="FILE", help="audio file to write (format from the extension)")
     p.add_argument("--boat", type=Path, metavar="B.toml", help="boat profile to simulate (default: a built-in demo boat)")
     p.add_argument("--seed", type=_whole_number(0), default=0, help="random seed (default 0)")
@@ -144,7 +149,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="comma-separated extra sounds: match,speech,splash,knock,hum")
     p.add_argument("--reverb", action="store_true", help="add room reverberation")
 
-    sub.add_parser("demo", help="run the whole job on the bundled synthetic recordings")
+    sub.add_parser("demo", parents=[common], help="run the whole job on the bundled synthetic recordings")
     return parser
 
 

@@ -238,3 +238,15 @@ def test_batch_figures_say_what_their_lines_and_axes_are() -> None:
     (ax,) = hist.axes
     assert ax.get_xlabel() == "steady cycle rate, median (Hz)"
     assert {t.get_text() for t in ax.texts} == {"min", "max", "target"}
+
+
+def test_debug_works_before_and_after_the_command(tmp_path: Path,
+                                                  capsys: pytest.CaptureFixture[str]) -> None:
+    from popmeter.errors import InputError
+
+    missing = str(tmp_path / "none.wav")
+    assert main(["analyze", missing]) == 2  # one line without it
+    assert "none.wav" in _one_error_line(capsys)
+    for argv in (["--debug", "analyze", missing], ["analyze", missing, "--debug"]):
+        with pytest.raises(InputError):
+            main(argv)
