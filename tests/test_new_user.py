@@ -250,3 +250,16 @@ def test_debug_works_before_and_after_the_command(tmp_path: Path,
     for argv in (["--debug", "analyze", missing], ["analyze", missing, "--debug"]):
         with pytest.raises(InputError):
             main(argv)
+
+
+def test_calibration_warns_below_the_five_units_the_readme_asks_for() -> None:
+    from popmeter import engine
+    from popmeter.profile import load_profile
+    from popmeter.stiffness import calibrate
+
+    prof = load_profile(BOAT)
+    rate_hz = engine.predict(prof).rate_hz
+    few = calibrate(prof, [(rate_hz * f, None) for f in (0.99, 1.0, 1.01)])
+    assert any("only 3 reference unit(s)" in w for w in few.warnings)
+    enough = calibrate(prof, [(rate_hz * f, None) for f in (0.99, 0.995, 1.0, 1.005, 1.01)])
+    assert not any("reference unit(s)" in w for w in enough.warnings)
