@@ -80,8 +80,10 @@ def analysis_renderable(analysis: Any, *, written: dict[str, Path] | None = None
     head.append(
         f"   {fmt(src.duration_s, 's', 1)} at {src.sample_rate_hz} Hz, "
         f"{channel_label(src.channel_used, src.channels)}   {len(det.clicks)} clicks, "
-        f"{s.get('cycles') or 0} cycles, {det.clicks_per_cycle} click(s) per cycle"
+        f"{s.get('cycles') or 0} cycles"
     )
+    if det.clicks:  # with no click there is nothing to count per cycle
+        head.append(f", {det.clicks_per_cycle} click(s) per cycle")
     if det.rejected:
         head.append(f", {det.rejected} other transients ignored", style="dim")
 

@@ -200,7 +200,9 @@ def test_recording_without_clicks_is_zero_clicks_and_a_warning(
     rng = np.random.default_rng(0)
     sf.write(noise, (0.05 * rng.standard_normal(8000 * 3)).astype("float32"), 8000)
     out = tmp_path / "noise.json"
-    assert main(["analyze", str(noise), "--quiet", "--json", str(out)]) == 0
+    assert main(["analyze", str(noise), "--json", str(out)]) == 0
+    head = capsys.readouterr().out.splitlines()[0]
+    assert "0 clicks" in head and "per cycle" not in head
     doc = json.loads(out.read_text())
     assert doc["clicks"] == [] and doc["summary"]["steady_rate_hz"] is None
     assert any("no clicks" in w for w in doc["warnings"])
