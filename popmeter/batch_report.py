@@ -356,9 +356,6 @@ def write_batch_report(result: BatchResult, out_dir: str | os.PathLike[str]) -> 
 # --- terminal ------------------------------------------------------------------------
 
 
-def _breakable(name: str) -> str:
-    """A metric name that a narrow terminal may wrap at its underscores."""
-    return name.replace("_", "_\u200b")
 
 
 def print_batch_summary(result: BatchResult, *, console: Any = None, max_rows: int = 40) -> None:
@@ -398,7 +395,7 @@ def print_batch_summary(result: BatchResult, *, console: Any = None, max_rows: i
     for metric, st in result.stats.items():
         ci = f"{_fmt(st.cpk_low, 2)}…{_fmt(st.cpk_high, 2)}" if st.cpk_low is not None else "—"
         stats.add_row(
-            f"{_breakable(metric)}\n[dim]{escape(_limits_text(st.lsl, st.usl))}[/]", str(st.n),
+            f"{metric}\n[dim]{escape(_limits_text(st.lsl, st.usl))}[/]", str(st.n),
             f"{100 * st.yield_frac:.0f} %" if st.yield_frac is not None else "—",
             _fmt(st.cpk, 3), ci, _fmt(st.ppk, 3), _fmt(st.mean, 3), _fmt(st.sd, 3),
             str(len(st.outliers)),
@@ -490,13 +487,13 @@ def show_history(
         points = series[name]
         batches_here = len({p.batch_id for p in points})
         if len(points) < 2:
-            table.add_row(_breakable(name), str(len(points)), str(batches_here), "n < 2",
+            table.add_row(name, str(len(points)), str(batches_here), "n < 2",
                           *["—"] * 5)
             continue
         chart = individuals_chart(np.array([p.value for p in points]))
         charts[name] = (chart, points)
         table.add_row(
-            _breakable(name), str(len(points)), str(batches_here), str(len(chart.violations)),
+            name, str(len(points)), str(batches_here), str(len(chart.violations)),
             _fmt(chart.center, 3), _fmt(chart.lcl, 3), _fmt(chart.ucl, 3),
             _fmt(chart.mr_mean, 3), _fmt(chart.mr_ucl, 3),
         )

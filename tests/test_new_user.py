@@ -265,3 +265,29 @@ def test_calibration_warns_below_the_five_units_the_readme_asks_for() -> None:
     assert any("only 3 reference unit(s)" in w for w in few.warnings)
     enough = calibrate(prof, [(rate_hz * f, None) for f in (0.99, 0.995, 1.0, 1.005, 1.01)])
     assert not any("reference unit(s)" in w for w in enough.warnings)
+
+
+def test_batch_table_metric_names_copy_cleanly(tmp_path: Path) -> None:
+    # a metric name copied from the terminal into a spec must not carry
+    # invisible characters (it used to hold zero-width spaces)
+    import io
+
+    from rich.console import Console
+
+    from popmeter.batch import batch_statistics
+    from popmeter.batch_report import print_batch_summary
+
+    spec_path = tmp_path / "spec.toml"
+    spec_path.write_text('name = "s"\n[limits.steady_rate_iqr_hz]\nmax = 0.5\n')
+    spec = load_spec(spec_path)
+    units = [UnitResult(serial=f"U{i}", position=i, verdict=Verdict(status="PASS"),
+                        summary={"steady_rate_iqr_hz": 0.1 + 0.01 * i}) for i in range(5)]
+    result = BatchResult(batch_id="b", spec=spec, source="x", out_dir=tmp_path, units=units,
+                         stats=batch_statistics(units, spec))
+    for width in (60, 160):
+        buf = io.StringIO()
+        print_batch_summary(result, console=Console(file=buf, width=width, color_system=None))
+        text = buf.getvalue()
+        assert "\u200b" not in text
+        if width == 160:
+            assert "steady_rate_iqr_hz" in text
