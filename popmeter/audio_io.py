@@ -61,7 +61,7 @@ import numpy as np
 import soundfile as sf
 from scipy import signal
 
-from popmeter.errors import DependencyError, InputError, UsageError
+from popmeter.errors import DependencyError, InputError, UsageError, output_error
 
 __all__ = [
     "CLIP_LEVEL_FS",
@@ -1195,9 +1195,12 @@ def write_audio(
         raise UsageError(f"{p}: samples exceed full scale (peak {peak:.3f}); scale them "
                          "or write a FLOAT WAV")
     target_dir = os.path.dirname(os.path.abspath(p))
-    os.makedirs(target_dir, exist_ok=True)
-    fd, tmp = tempfile.mkstemp(prefix=".popmeter-", suffix=ext if major != "ffmpeg" else ".wav",
-                               dir=target_dir)
+    try:  # name the user's path, not the temporary file beside it
+        os.makedirs(target_dir, exist_ok=True)
+        fd, tmp = tempfile.mkstemp(prefix=".popmeter-", suffix=ext if major != "ffmpeg" else ".wav",
+                                   dir=target_dir)
+    except OSError as error:
+        raise output_error(p, error) from None
     os.close(fd)
     # mkstemp makes the file private (0600); a recording gets the usual
     # permissions of a new file (owner writes, everyone reads).
@@ -1210,7 +1213,10 @@ def write_audio(
             sf.write(tmp, x, rate, format=major, subtype=sub)
         except (sf.LibsndfileError, RuntimeError, ValueError, TypeError) as err:
             raise UsageError(f"{p}: cannot write {major}/{sub} at {rate} Hz ({err})") from None
-        os.replace(tmp, p)
+        try:
+            os.replace(tmp, p)
+        except OSError as error:
+            raise output_error(p, error) from None
     finally:
         if os.path.exists(tmp):
             os.unlink(tmp)

@@ -1106,8 +1106,7 @@ def write_run(path: str | Path, scenario: RunScenario, *, extra: dict | None = N
     if extra:
         truth.update(extra)
     out = Path(path)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    write_audio(out, samples, scenario.sample_rate_hz, subtype=subtype)
+    write_audio(out, samples, scenario.sample_rate_hz, subtype=subtype)  # creates the folder
     write_truth(truth_path_for(out), truth)
     return out
 

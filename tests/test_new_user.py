@@ -291,3 +291,19 @@ def test_batch_table_metric_names_copy_cleanly(tmp_path: Path) -> None:
         assert "\u200b" not in text
         if width == 160:
             assert "steady_rate_iqr_hz" in text
+
+
+def test_simulate_to_an_unwritable_place_names_the_users_path(
+        tmp_path: Path, capsys: pytest.CaptureFixture[str]) -> None:
+    blocker = tmp_path / "notes.txt"
+    blocker.write_text("x\n")
+    assert main(["simulate", "--out", str(blocker / "x.wav"), "--duration", "2",
+                 "--samplerate", "8000"]) == 2
+    line = _one_error_line(capsys)
+    assert str(blocker / "x.wav") in line and "is a file, not a folder" in line
+    folder = tmp_path / "d.wav"
+    folder.mkdir()
+    assert main(["simulate", "--out", str(folder), "--duration", "2", "--samplerate", "8000"]) == 2
+    line = _one_error_line(capsys)
+    assert "it is a folder" in line and ".popmeter-" not in line
+    assert not [p for p in tmp_path.iterdir() if p.name.startswith(".popmeter-")]
