@@ -335,7 +335,7 @@ class ClickDetector:
         self._pre = round(0.008 * fs)
         self._post = round(0.001 * fs)
         self._tail = round(0.020 * fs)
-        self._bp_sd_hz = 300.0  # width (1 sd) of the band used for the coarse onset
+        self._bp_len = max(4, round(0.001 * fs))  # 1 ms: the band of the coarse onset
         self._nfft_ring = int(2 ** math.ceil(math.log2(self._tail)))
         self._tapers: dict[int, np.ndarray] = {}
         self._nfft_short = int(2 ** math.ceil(math.log2(1.5 * 0.006 * fs)))
@@ -750,17 +750,17 @@ class ClickDetector:
         s0 = lead
         rows = np.arange(k)[:, None]
         # coarse: the peak of the energy of the band where the candidate rang
-        # (zero-phase Gaussian band-pass by FFT, 1 sd = bp_sd_hz) within the
-        # frame holding the rise; in noise that band holds far more of the
-        # click than the broadband signal, whose own peak may be noise
+        # within the frame holding the rise (complex demodulation at the bin's
+        # frequency, 1 ms moving average: a +-500 Hz band); in noise that band
+        # holds far more of the click than the broadband signal, whose own
+        # peak may be noise
         fc = self._bin_hz[np.array([c.band for c in cands], dtype=np.int64)]
-        nseg = lead + search + self._post
-        nfft_bp = sp_fft.next_fast_len(nseg + self._pre, real=True)
-        fb = np.arange(nfft_bp // 2 + 1) * (fs / nfft_bp)
-        gain = np.exp(-0.5 * ((fb[None, :] - fc[:, None]) / self._bp_sd_hz) ** 2)
-        bp = sp_fft.irfft(sp_fft.rfft(y[:, :nseg], n=nfft_bp, axis=1) * gain.astype(np.float32),
-                          n=nfft_bp, axis=1)[:, :nseg]
-        pk = s0 + np.argmax(bp[:, s0:s0 + search] ** 2, axis=1)
+        nav = self._bp_len
+        seg = y[:, s0 - nav // 2:s0 + search + nav - nav // 2]
+        ph = np.exp((-2j * math.pi / fs) * fc[:, None] * np.arange(seg.shape[1])[None, :])
+        cs = np.cumsum(seg * ph.astype(np.complex64), axis=1)
+        band_e = np.abs(cs[:, nav:nav + search] - cs[:, :search])
+        pk = s0 + np.argmax(band_e, axis=1)
         # fine: AIC change point (Maeda 1985) on the broadband y[pk - pre, pk + post)
         j = _aic_split(y[rows, (pk - self._pre)[:, None]
                          + np.arange(self._pre + self._post)[None, :]])
@@ -1011,6 +1011,8 @@ class _TemplateScan:
         self.nfft = sp_fft.next_fast_len(self.C + self.E + self.E2 + self.L, real=True)
         f = np.arange(self.nfft // 2 + 1) * (fs_d / self.nfft)
         self.mask = ((f >= 300.0) & (f <= 0.45 * fs_d)).astype(np.float32)
+        self._spec_key: int | None = None  # chunk whose spectrum is in _spec
+        self._spec = np.zeros(0, dtype=np.complex64)
 
     @property
     def templates(self) -> list[float]:
@@ -1091,42 +1093,53 @@ class _TemplateScan:
         noise = np.random.default_rng(12345).standard_normal(self.nfft).astype(np.float32)
         slot[4] = 1.0
         env = self._envelope(noise[:self.C + self.E + self.E2 + self.L - 1], slot[0])
-        slot[4] = float(np.median(self._floor(env)) / np.median(env))
+        slot[4] = float(np.percentile(self._bin_medians(env), 10)) / float(np.median(env))
         return True
 
-    def _envelope(self, seg: np.ndarray, hc: np.ndarray) -> np.ndarray:
+    def _envelope(self, seg: np.ndarray, hc: np.ndarray, key: int | None = None
+                  ) -> np.ndarray:
         """Envelope of the matched-filter output (analytic signal) of one chunk."""
-        r = sp_fft.rfft(seg, n=self.nfft) * self.mask * hc
+        if key is None or key != self._spec_key:
+            self._spec = sp_fft.rfft(seg, n=self.nfft) * self.mask
+            self._spec_key = key
+        r = self._spec * hc
         full = np.zeros(self.nfft, dtype=np.complex64)
         full[:r.size] = 2.0 * r
         full[0] *= 0.5
         return np.abs(sp_fft.ifft(full)[:self.C + self.E + self.E2])
 
-    def _floor(self, env: np.ndarray) -> np.ndarray:
-        """Lower decile of the 10 ms medians of env within +-0.5 s, per 10 ms bin."""
+    def _bin_medians(self, env: np.ndarray) -> np.ndarray:
+        """Median of env per 10 ms bin (the upper median: an order statistic)."""
         g = round(0.010 * self.fs_d)
         nb = env.size // g
-        bm = np.median(env[:nb * g].reshape(nb, g), axis=1)
-        span = 50
-        pad = np.pad(bm, span, mode="edge")
-        return np.percentile(np.lib.stride_tricks.sliding_window_view(pad, 2 * span + 1),
-                             10, axis=1)
+        return np.partition(env[:nb * g].reshape(nb, g), g // 2, axis=1)[:, g // 2]
 
     def advance(self, complete_until_in: float, *, final: bool) -> None:
         """Scan the chunks whose audio and accepted clicks are complete."""
         done_d = complete_until_in / self.q
-        for si, slot in enumerate(self.slots):
-            while slot[3] < self.n:
-                a = slot[3]
-                need = a + self.C + self.E2 + self.L
-                if not final and (self.n < need or done_d < need):
-                    break
-                if slot[0] is None:
-                    if not final and done_d < a + self.C + self.lookback:
-                        break  # the template may still form in time for this chunk
-                else:
-                    self._scan(a, si)
-                slot[3] = a + self.C
+
+        def ready(slot: list) -> bool:
+            a = slot[3]
+            if a >= self.n:
+                return False
+            if final:
+                return True
+            need = a + self.C + self.E2 + self.L
+            if self.n < need or done_d < need:
+                return False
+            # without its template, a chunk waits while the template may still
+            # form in time for it
+            return slot[0] is not None or done_d >= a + self.C + self.lookback
+
+        while True:
+            # the earliest chunk first, so both templates scan a chunk in turn
+            ok = [slot for slot in self.slots if ready(slot)]
+            if not ok:
+                break
+            slot = min(ok, key=lambda sl: sl[3])
+            if slot[0] is not None:
+                self._scan(slot[3], next(i for i, sl in enumerate(self.slots) if sl is slot))
+            slot[3] += self.C
         first = min(s[3] for s in self.slots)
         keep = first - self.E - self.P
         if keep > self.b0:
@@ -1145,7 +1158,7 @@ class _TemplateScan:
         lo, hi = max(s0, self.b0), min(s0 + m, self.b0 + self.buf.size)
         if hi > lo:
             seg[lo - s0:hi - s0] = self.buf[lo - self.b0:hi - self.b0]
-        env = self._envelope(seg, hc)  # output i <-> onset at a - E + i
+        env = self._envelope(seg, hc, a)  # output i <-> onset at a - E + i
         base = a - self.E
         i0 = bisect.bisect_left(self.onsets, base - self.E2)
         i1 = bisect.bisect_left(self.onsets, base + n_out + self.E2)
@@ -1168,10 +1181,12 @@ class _TemplateScan:
             env_s = env
         g = round(0.010 * self.fs_d)
         nb = n_out // g
-        bm = np.median(env_s[:nb * g].reshape(nb, g), axis=1)
-        floor = self._floor(env_s) / self.slots[si][4]
+        bm = self._bin_medians(env_s)
+        floor = float(np.percentile(bm, 10)) / self.slots[si][4]  # one value per chunk
         pre = np.concatenate([np.full(4, bm[0] if nb else 0.0), bm])
-        prev = np.median(np.column_stack([pre[0:nb], pre[1:nb + 1], pre[2:nb + 2]]), axis=1)
+        p0, p1, p2 = pre[0:nb], pre[1:nb + 1], pre[2:nb + 2]
+        prev = p0 + p1 + p2 - np.maximum(np.maximum(p0, p1), p2) - np.minimum(
+            np.minimum(p0, p1), p2)  # median of three
         lvl_b = np.maximum(floor, prev) / 1.1774
         lvl = np.full(n_out, lvl_b[-1] if nb else float(np.median(env)) / 1.1774)
         lvl[:nb * g] = np.repeat(lvl_b, g)
