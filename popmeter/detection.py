@@ -960,7 +960,7 @@ class _TemplateScan:
     normalised correlation (best over +-0.7 ms shifts); the largest group that
     correlates 0.5 or more with its most typical member is aligned on its
     average and averaged: the main template.  Accepted clicks that later
-    correlate under 0.5 with it are collected; once ``n_examples // 4`` of
+    correlate under 0.5 with it are collected; once ``n_examples // 2`` of
     them form such a group of their own (the brighter, shorter second click
     of a two-click engine), they give a second template.
 
@@ -987,10 +987,11 @@ class _TemplateScan:
     """
 
     def __init__(self, fs_in: float, q: int, fs_d: float, *, threshold: float = 5.0,
-                 n_examples: int = 80, length_s: float = 0.012, chunk_s: float = 1.0,
+                 n_examples: int = 32, length_s: float = 0.012, chunk_s: float = 1.0,
                  lookback_s: float = 30.0) -> None:
         self.fs_in, self.q, self.fs_d = fs_in, q, fs_d
         self.threshold = threshold
+        self.expect_threshold = 3.0
         self.K = n_examples
         self.L = round(length_s * fs_d)
         self.P = round(0.0005 * fs_d)
@@ -1004,6 +1005,8 @@ class _TemplateScan:
         self.n = 0  # decimated samples fed
         self.onsets: list[int] = []  # accepted clicks' onsets (decimated index), sorted
         self.examples: list[np.ndarray] = []
+        self.example_onsets: list[int] = []
+        self.phase: float | None = None  # second click's delay / the period before
         # per template slot: [spectrum or None, ring_hz, time-domain h, next
         # chunk, floor calibration]
         self.slots: list[list] = [[None, 0.0, None, 0, 1.0], [None, 0.0, None, 0, 1.0]]
@@ -1044,14 +1047,16 @@ class _TemplateScan:
             if float(np.max(np.abs(c))) >= 0.55:
                 return
         self.examples.append(ex)
+        self.example_onsets.append(od)
         if main[0] is None and len(self.examples) >= self.K:
             self._make_template(main)
-            self.examples = []
-        elif main[0] is not None and len(self.examples) >= self.K // 4:
+            self.examples, self.example_onsets = [], []
+        elif main[0] is not None and len(self.examples) >= self.K // 2:
             if self._make_template(second):
-                self.examples = []
-            elif len(self.examples) >= self.K:
-                self.examples = self.examples[self.K // 4:]
+                self.examples, self.example_onsets = [], []
+            elif len(self.examples) >= 2 * self.K:
+                self.examples = self.examples[self.K // 2:]
+                self.example_onsets = self.example_onsets[self.K // 2:]
 
     def _make_template(self, slot: list) -> bool:
         A, L = self.A, self.L
@@ -1085,6 +1090,8 @@ class _TemplateScan:
         spec = np.abs(sp_fft.rfft(h, n=nf))
         fr = np.arange(spec.size) * (self.fs_d / nf)
         spec[(fr < 300.0) | (fr > 0.45 * self.fs_d)] = 0.0
+        if slot is self.slots[1]:
+            self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
         slot[0] = np.conj(sp_fft.rfft(h, n=self.nfft)).astype(np.complex64)
         slot[1] = float(fr[int(np.argmax(spec))])
         slot[2] = h
@@ -1095,6 +1102,45 @@ class _TemplateScan:
         env = self._envelope(noise[:self.C + self.E + self.E2 + self.L - 1], slot[0])
         slot[4] = float(np.percentile(self._bin_medians(env), 10)) / float(np.median(env))
         return True
+
+    def _mains(self, lo: int, hi: int) -> np.ndarray:
+        """Accepted onsets in [lo, hi) (decimated) that match the main template."""
+        i0, i1 = bisect.bisect_left(self.onsets, lo), bisect.bisect_left(self.onsets, hi)
+        on = np.array(self.onsets[i0:i1], dtype=np.int64)
+        st = on - self.P - self.A - self.b0
+        on, st = on[(st >= 0) & (st + self.L + 2 * self.A <= self.buf.size)], \
+            st[(st >= 0) & (st + self.L + 2 * self.A <= self.buf.size)]
+        if on.size == 0:
+            return on
+        w = self.buf[st[:, None] + np.arange(self.L + 2 * self.A)[None, :]].astype(np.float64)
+        win = np.lib.stride_tricks.sliding_window_view(w, self.L, axis=1)
+        win = win - win.mean(axis=2, keepdims=True)
+        c = np.einsum("ksl,l->ks", win, self.slots[0][2]) / (
+            np.linalg.norm(win, axis=2) + 1e-20)
+        return on[np.abs(c).max(axis=1) >= 0.55]
+
+    def _learn_phase(self, onsets: list[int]) -> float | None:
+        """Delay of the second clicks after the main click / the period before it.
+
+        From the second family's examples and the main clicks before them; None
+        unless 5 or more agree within an interquartile range of 0.05.
+        """
+        if not onsets:
+            return None
+        mains = self._mains(min(onsets) - round(1.0 * self.fs_d), max(onsets))
+        r = []
+        for od in onsets:
+            j = int(np.searchsorted(mains, od)) - 1
+            if j >= 1:
+                period = mains[j] - mains[j - 1]
+                if 0 < period <= 0.5 * self.fs_d:
+                    r.append((od - mains[j]) / period)
+        if len(r) < 5:
+            return None
+        q1, q2, q3 = np.percentile(r, [25, 50, 75])
+        if q3 - q1 > 0.05 or not 0.1 <= q2 <= 0.9:
+            return None
+        return float(q2)
 
     def _envelope(self, seg: np.ndarray, hc: np.ndarray, key: int | None = None
                   ) -> np.ndarray:
@@ -1196,15 +1242,16 @@ class _TemplateScan:
         idx = np.arange(self.E, min(self.E + self.C, n_out - 1))
         c = idx[(score[idx] >= self.threshold) & (env[idx] >= env[idx - 1])
                 & (env[idx] > env[idx + 1]) & ~near[idx]]
-        if c.size == 0:
-            return
         epad = np.concatenate([env, np.zeros(r2 + 1)])
         before = epad[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)
         after = epad[c[:, None] + np.arange(1, r2 + 1)[None, :]].max(axis=1)
         ref = epad[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)
         good = ((env[c] > before) & (env[c] >= after) & (env[c] >= 2.0 * ref)
                 & (base + c - l1 >= 0))  # the stream's start is no reference
-        for i in c[good].tolist():
+        found = set(c[good].tolist())
+        if si == 1 and self.phase is not None:
+            found |= self._expected(base, n_out, env, env * (1.1774 / floor), near)
+        for i in sorted(found):
             al, be, ga = env[i - 1], env[i], env[i + 1]
             den = al - 2 * be + ga
             frac = 0.5 * (al - ga) / den if den < 0 else 0.0
@@ -1216,6 +1263,41 @@ class _TemplateScan:
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
                                      strength=round(20 * math.log10(float(score[i])), 3),
                                      ring_hz=self._ring(d0, ring_hz), decay_s=None))
+
+    def _expected(self, base: int, n_out: int, env: np.ndarray, score: np.ndarray,
+                  near: np.ndarray) -> set[int]:
+        """Second clicks where the cycle puts them (bounded search, lower threshold).
+
+        For each main click of the chunk, the second click is expected
+        ``phase`` x the period before it later; within +-(1 ms + 3 % of that
+        delay) the envelope's largest peak counts at ``expect_threshold``
+        times the noise level (the search is a few samples wide, so far fewer
+        noise peaks compete than in the free scan).
+        """
+        out: set[int] = set()
+        r1, r2 = round(0.002 * self.fs_d), round(0.004 * self.fs_d)
+        mains = self._mains(base - round(0.6 * self.fs_d), base + n_out)
+        if mains.size < 2:
+            return out
+        period = np.diff(mains)
+        m0 = mains[1:]
+        ok = (period > 0) & (period <= 0.5 * self.fs_d)
+        delay = self.phase * period[ok]
+        pred = m0[ok] + np.round(delay).astype(np.int64) - base
+        half = np.round(0.001 * self.fs_d + 0.03 * delay).astype(np.int64)
+        lo_i, hi_i = self.E, min(self.E + self.C, n_out - 1)
+        for p, w in zip(pred.tolist(), half.tolist()):
+            if p < lo_i or p >= hi_i:
+                continue
+            a, b = max(p - w, 1), min(p + w + 1, n_out - 1)
+            if a >= b or near[a:b].any():
+                continue
+            i = a + int(np.argmax(env[a:b]))
+            ref = env[max(i - r2, 0):max(i - r1, 1)].max()
+            if (score[i] >= self.expect_threshold and env[i] >= env[i - 1]
+                    and env[i] >= env[i + 1] and env[i] >= 1.5 * ref):
+                out.add(i)
+        return out
 
     def _ring(self, d0: int, family_hz: float) -> float | None:
         """Spectral peak of the 20 ms tail within +-8 % of the family's ring (Hz)."""
