@@ -1051,7 +1051,8 @@ class _TemplateScan:
         if main[0] is None and len(self.examples) >= self.K:
             self._make_template(main)
             self.examples, self.example_onsets = [], []
-        elif main[0] is not None and len(self.examples) >= self.K // 2:
+        elif (main[0] is not None and len(self.examples) >= self.K // 2
+              and len(self.examples) % 4 == 0):  # (a new try every 4 examples)
             if self._make_template(second):
                 self.examples, self.example_onsets = [], []
             elif len(self.examples) >= 2 * self.K:
@@ -1187,7 +1188,8 @@ class _TemplateScan:
                 self._scan(slot[3], next(i for i, sl in enumerate(self.slots) if sl is slot))
             slot[3] += self.C
         first = min(s[3] for s in self.slots)
-        keep = first - self.E - self.P
+        # (and 1 s more: the main clicks before a chunk place its second clicks)
+        keep = first - self.E - self.P - self.C
         if keep > self.b0:
             self.buf = self.buf[keep - self.b0:]
             self.b0 = keep
