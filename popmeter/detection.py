@@ -41,8 +41,11 @@ The steps, and the published method each follows:
    candidate when its value is the largest within plus or minus the
    refractory time (the max-filter peak picker of Böck, Krebs & Schedl,
    ISMIR 2012, as in ``librosa.util.peak_pick``).
-6. **Sample-accurate onset** by the Akaike-information-criterion change-point
-   picker on the high-passed waveform around the candidate (Maeda 1985; the
+6. **Sample-accurate onset**: first the energy peak of the band where the
+   candidate rang (complex demodulation at that bin's frequency, 1 ms
+   average), which in noise is far more reliable than the broadband peak;
+   then the Akaike-information-criterion change-point picker on the
+   high-passed waveform in the 8 ms before that peak (Maeda 1985; the
    two-segment form used by Sleeman & van Eck, PEPI 1999, computed with
    cumulative sums): the onset is the sample that best splits "noise before"
    from "signal after".
@@ -64,10 +67,29 @@ The steps, and the published method each follows:
    that takes back rejected candidates ringing exactly like an accepted
    family (short, bright second clicks).
 
+9. **Matched-filter pass with the recording's own click** (North 1943;
+   Turin, "An introduction to matched filters", IRE Trans. IT-6, 1960): once
+   32 clicks have been accepted, their aligned average is the main template
+   (and, from accepted or nearly accepted clicks unlike it, a second
+   template for the brighter second click of a two-click engine).  The
+   decimated stream is correlated with each template in fixed 1 s chunks and
+   the envelope of the output is thresholded against its own robust noise
+   level (Rayleigh statistics); the clicks a frame detector misses (startup
+   and fade pops, second clicks) stand out there because the template
+   gathers the whole ring's energy.  Once the second click's delay (as a
+   fraction of the period) is known, a narrow window at each expected second
+   click is searched with a lower threshold.  The first up to 30 s are kept
+   so that the clicks before the templates existed are found too.  See
+   :class:`_TemplateScan`.  These clicks join in the whole-recording passes
+   (:func:`finish_detection`), not in ``process``'s output.
+
 Latency of the streaming detector: a click is finalised once
-``max_latency_s`` of audio after its onset has arrived (47 ms at 48 kHz with
-the defaults: the 12.5 ms refractory look-ahead, the 10.7 ms frame and the
-24 ms ring tail), plus the block in which those samples arrive.
+``max_latency_s`` of audio after its onset has arrived (50 ms at 48 kHz with
+the defaults: the 12 ms refractory look-ahead, the 10.7 ms frame, 6 ms of
+onset search and the 20 ms ring tail), plus the block in which those samples
+arrive.  The matched-filter clicks reach :func:`finish_detection` about 1 s
+later (one chunk), or up to 30 s later for clicks before the templates
+formed.
 """
 
 from __future__ import annotations
@@ -236,6 +258,15 @@ class ClickDetector:
     reject : bool
         Apply the rejection tests (default True).  With False every
         candidate becomes a click.
+    template_scan : bool
+        Run the matched-filter pass with the recording's own click templates
+        (module notes, step 9); default True.  Off when ``reject`` is False.
+    template_threshold : float
+        Height of the matched-filter envelope over its noise level that makes
+        a click; default 5: the envelope of Gaussian noise is Rayleigh
+        distributed and passes 5 times its scale with probability
+        exp(-12.5) = 4e-6 per independent sample (about one false click in
+        5 minutes at the output's bandwidth, before the other tests).
 
     Attributes
     ----------
@@ -957,33 +988,45 @@ class _TemplateScan:
 
     **Templates.**  The first ``n_examples`` accepted clicks (decimated,
     ``length_s`` long from just before their onsets) are compared by
-    normalised correlation (best over +-0.7 ms shifts); the largest group that
+    normalised correlation (best over +-0.7 ms shifts); the group that
     correlates 0.5 or more with its most typical member is aligned on its
-    average and averaged: the main template.  Accepted clicks that later
-    correlate under 0.5 with it are collected; once ``n_examples // 2`` of
-    them form such a group of their own (the brighter, shorter second click
-    of a two-click engine), they give a second template.
+    average and averaged: the main template.  Clicks that later correlate
+    under 0.55 with it (accepted ones, and rejected candidates with a clear
+    onset and ring) are collected; once a group of 6 or more of them forms
+    (the brighter, shorter second click of a two-click engine), and its
+    average is not the main template again, it gives a second template.  The
+    second click's delay after its main click, as a fraction of the period
+    before, is learnt from that group (median, when the interquartile range
+    is 0.05 or less).
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
-    IRE Trans. IT-6, 1960), in fixed chunks of ``chunk_s`` by FFT, and the
-    envelope of the output (analytic signal) is compared with its own noise
-    level: per point, the median envelope within +-30 ms with the known
-    clicks masked, divided by 1.1774 (the median of a Rayleigh variable of
-    unit scale; the envelope of Gaussian noise is Rayleigh), never below the
-    chunk's level.  A click is a peak of ``threshold`` or more times that
-    level that is the largest within -5/+12 ms, rises 6 dB over the 4-7 ms
-    before it, and has no accepted click within 5 ms.  In noise the envelope
-    passes 5 x its scale with probability exp(-12.5) = 4e-6 (Rayleigh tail).
+    IRE Trans. IT-6, 1960), in fixed chunks of ``chunk_s`` by FFT (300 Hz to
+    0.45 x the decimated rate), and the envelope of the output (analytic
+    signal) is compared with a noise level: the larger of (a) the chunk's
+    floor, the lower decile of the 10 ms medians of the envelope divided by
+    its value on white Gaussian noise (computed once per template, fixed
+    seed) -- robust to clicks filling most of the chunk -- and (b) the median
+    of the three 10 ms medians 20-50 ms earlier (speech or a splash raises
+    it; bins within an accepted click's ring count as zero there); each over 1.1774, the median of a Rayleigh variable of unit scale
+    (the envelope of Gaussian noise is Rayleigh).  A click is a peak
+    ``threshold`` or more times that level, the largest within -5/+12 ms,
+    rising 6 dB over the envelope just before the template's length, with
+    no accepted click within 10 ms.  With the second click's delay known,
+    the largest envelope peak within +-(1 ms + 3 % of the delay) of each
+    expected second click counts at 3 times the floor alone if it rises
+    3.5 dB over the 2-4 ms before it (a narrow search: few noise peaks
+    compete).
 
     **Streaming.**  Chunks are fixed in the stream, each template is frozen
-    the moment its last example is accepted (set by the audio alone), and a
-    chunk is scanned with a template only once the accepted clicks around it
-    are known, so the result does not depend on block sizes.  Chunks are kept
-    until the templates exist, at most ``lookback_s`` (then they are skipped):
-    the startup's weak clicks before the templates formed are found too.
-    Memory: at most 30 s of float32 at the decimated rate (2.9 MB at 24 kHz)
-    and the extra clicks.
+    the moment its last example is measured (set by the audio alone), and a
+    chunk is scanned only once the accepted clicks around it are known, so
+    the result does not depend on block sizes.  Without its template a chunk
+    is kept while the template may still form in time for it (at most
+    ``lookback_s`` before the accepted clicks' frontier), so the weak startup
+    clicks before the templates formed are found too.  Memory: at most about
+    32 s of float32 at the decimated rate (3 MB at 24 kHz) and the clicks
+    found.
     """
 
     def __init__(self, fs_in: float, q: int, fs_d: float, *, threshold: float = 5.0,
@@ -1237,6 +1280,12 @@ class _TemplateScan:
         np.add.at(edges, np.clip(on - r_near, 0, n_out), 1)
         np.add.at(edges, np.clip(on + r_near + 1, 0, n_out), -1)
         near = np.cumsum(edges[:-1]) > 0
+        # where accepted clicks (and their rings) fill the envelope: not used as
+        # the local level before a point (a second click follows its main one)
+        edges[:] = 0
+        np.add.at(edges, np.clip(on - self.L, 0, n_out), 1)
+        np.add.at(edges, np.clip(on + self.E2 + self.E, 0, n_out), -1)
+        busy = np.cumsum(edges[:-1]) > 0
         # noise level: the envelope's median per 10 ms bin; the floor is the
         # lower decile of those medians within +-0.5 s (robust to clicks
         # covering up to 90 % of the time), divided by its value for noise
@@ -1251,7 +1300,8 @@ class _TemplateScan:
         nb = n_out // g
         bm = self._bin_medians(env_s)
         floor = float(np.percentile(bm, 10)) / self.slots[si][4]  # one value per chunk
-        pre = np.concatenate([np.full(4, bm[0] if nb else 0.0), bm])
+        bm_local = np.where(busy[:nb * g].reshape(nb, g).any(axis=1), 0.0, bm)
+        pre = np.concatenate([np.full(4, bm_local[0] if nb else 0.0), bm_local])
         p0, p1, p2 = pre[0:nb], pre[1:nb + 1], pre[2:nb + 2]
         prev = p0 + p1 + p2 - np.maximum(np.maximum(p0, p1), p2) - np.minimum(
             np.minimum(p0, p1), p2)  # median of three
@@ -1806,8 +1856,9 @@ def finish_detection(detector: ClickDetector, clicks: list[Click], *,
     ring like no family of the recording's clicks are set aside
     (:func:`reject_atypical`), rejected candidates that ring like a family
     are taken back, a lone transient without an exponential decay is
-    dropped, and one or two clicks per cycle is decided
-    (:func:`assign_kinds`).  Live capture calls this on the stream so far
+    dropped, the clicks found by the matched-filter pass and not already
+    present (none within 10 ms) are added, and one or two clicks per cycle
+    is decided (:func:`assign_kinds`).  Live capture calls this on the stream so far
     (it does not change the detector).
 
     Parameters
