@@ -14,7 +14,9 @@ at 12 dB click-to-noise the weakest lie under the noise).
 
 Speed: the analyze-equivalent (popmeter.audio_io.open_stream + detect_clicks_in_blocks)
 on a 48 kHz mono WAV file, side by side with librosa.load + librosa.onset.onset_detect
-(default settings) on the same file; best of three after a warm-up run.
+(default settings) on the same file; best of three after a warm-up run, in one
+process, with OMP/OpenBLAS/MKL/numba thread pools set to one thread (one core),
+also without the matched-filter pass (template_scan=False) for comparison.
 
 Memory: a 2-hour recording built on disk by tiling a generated minute in blocks,
 analysed in a subprocess; peak RSS from resource.getrusage.
@@ -22,8 +24,15 @@ analysed in a subprocess; peak RSS from resource.getrusage.
 
 from __future__ import annotations
 
-import argparse
 import os
+
+# one core for every library (set before numpy, scipy and librosa load their
+# thread pools): the speed figures are single-core figures
+for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+             "NUMBA_NUM_THREADS", "VECLIB_MAXIMUM_THREADS"):
+    os.environ[_var] = "1"
+
+import argparse
 import resource
 import subprocess
 import sys
@@ -139,11 +148,11 @@ def alone(seeds: list[int]) -> None:
         print(f"{kind:12s} {clicks:6d} {rejected:8d}   (over {len(seeds)} recordings)")
 
 
-def _analyze_equivalent(path: str) -> int:
+def _analyze_equivalent(path: str, **options) -> int:
     from popmeter.audio_io import open_stream
 
     with open_stream(path) as stream:
-        res = detect_clicks_in_blocks(stream, int(stream.info.sample_rate_hz))
+        res = detect_clicks_in_blocks(stream, int(stream.info.sample_rate_hz), **options)
     return len(res.clicks)
 
 
@@ -163,7 +172,7 @@ def speed(tmp: str, minutes: float) -> None:
     dur = sc.duration_s
     _analyze_equivalent(path)
     _librosa_path(path)  # warm-up: numba compilation and caches
-    t_ours, t_lib = [], []
+    t_ours, t_lib, t_noscan = [], [], []
     for _ in range(3):
         t0 = time.perf_counter()
         _analyze_equivalent(path)
@@ -171,9 +180,14 @@ def speed(tmp: str, minutes: float) -> None:
         t0 = time.perf_counter()
         _librosa_path(path)
         t_lib.append(time.perf_counter() - t0)
-    a, b = min(t_ours), min(t_lib)
-    print(f"\n== speed: {dur:.0f} s, 48 kHz mono 16-bit WAV, best of 3 (one process) ==")
+        t0 = time.perf_counter()
+        _analyze_equivalent(path, template_scan=False)
+        t_noscan.append(time.perf_counter() - t0)
+    a, b, c = min(t_ours), min(t_lib), min(t_noscan)
+    print(f"\n== speed: {dur:.0f} s, 48 kHz mono 16-bit WAV, best of 3 (one process, "
+          "thread pools set to 1: one core) ==")
     print(f"popmeter open_stream + detect_clicks_in_blocks : {a:7.3f} s  = {dur / a:7.0f}x real time")
+    print(f"  the same without the matched-filter pass     : {c:7.3f} s  = {dur / c:7.0f}x real time")
     print(f"librosa.load + librosa.onset.onset_detect      : {b:7.3f} s  = {dur / b:7.0f}x real time")
     print(f"ratio popmeter / librosa time                  : {a / b:7.2f}")
 
