@@ -1052,8 +1052,9 @@ class _TemplateScan:
         self.phase: float | None = None  # second click's delay / the period before
         self._is_main: dict[int, bool] = {}  # accepted onset -> like the main template
         # per template slot: [spectrum or None, ring_hz, time-domain h, next
-        # chunk, floor calibration]
-        self.slots: list[list] = [[None, 0.0, None, 0, 1.0], [None, 0.0, None, 0, 1.0]]
+        # chunk, floor calibration, ring DFT basis]
+        self.slots: list[list] = [[None, 0.0, None, 0, 1.0, None],
+                                  [None, 0.0, None, 0, 1.0, None]]
         self.clicks: list[Click] = []
         self.nfft = sp_fft.next_fast_len(self.C + self.E + self.E2 + self.L, real=True)
         f = np.arange(self.nfft // 2 + 1) * (fs_d / self.nfft)
@@ -1262,7 +1263,7 @@ class _TemplateScan:
             del self.onsets[:bisect.bisect_left(self.onsets, lo)]
 
     def _scan(self, a: int, si: int) -> None:
-        hc, ring_hz = self.slots[si][0], self.slots[si][1]
+        hc = self.slots[si][0]
         s0 = a - self.E - self.P  # decimated index of seg[0]
         n_out = self.C + self.E + self.E2
         m = n_out + self.L - 1
@@ -1323,7 +1324,9 @@ class _TemplateScan:
         found = set(c[good].tolist())
         if si == 1 and self.phase is not None:
             found |= self._expected(base, n_out, env, env * (1.1774 / floor), near)
-        for i in sorted(found):
+        order = sorted(found)
+        rings = self._rings([base + i - self.b0 for i in order], si)
+        for i, ring in zip(order, rings):
             al, be, ga = env[i - 1], env[i], env[i + 1]
             den = al - 2 * be + ga
             frac = 0.5 * (al - ga) / den if den < 0 else 0.0
@@ -1334,7 +1337,7 @@ class _TemplateScan:
             self.clicks.append(Click(time_s=onset_in / self.fs_in, sample=onset_in,
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
                                      strength=round(20 * math.log10(float(score[i])), 3),
-                                     ring_hz=self._ring(d0, ring_hz), decay_s=None))
+                                     ring_hz=ring, decay_s=None))
 
     def _expected(self, base: int, n_out: int, env: np.ndarray, score: np.ndarray,
                   near: np.ndarray) -> set[int]:
@@ -1371,24 +1374,40 @@ class _TemplateScan:
                 out.add(i)
         return out
 
-    def _ring(self, d0: int, family_hz: float) -> float | None:
-        """Spectral peak of the 20 ms tail within +-8 % of the family's ring (Hz)."""
+    def _rings(self, starts: list[int], si: int) -> list[float | None]:
+        """Ring frequency (Hz) of the 20 ms tails at these buffer indices.
+
+        The largest of the spectrum values on a grid within +-8 % of the
+        family's ring (0.25 % steps; a direct DFT of the Hann-windowed tail),
+        refined by quadratic interpolation of the log magnitude (Smith &
+        Serra 1987); None where the tail is not in the buffer.
+        """
+        out: list[float | None] = [None] * len(starts)
         m = round(0.020 * self.fs_d)
-        tail = self.buf[max(d0, 0):max(d0 + m, 0)]
-        if tail.size < m // 2:
-            return None
-        nf = 4 * int(2 ** math.ceil(math.log2(m)))
-        spec = np.abs(sp_fft.rfft(tail * np.hanning(tail.size), n=nf))
-        fr = np.arange(spec.size) * (self.fs_d / nf)
-        sel = np.nonzero((fr >= 0.92 * family_hz) & (fr <= 1.08 * family_hz))[0]
-        if sel.size < 3:
-            return family_hz
-        k = int(sel[np.argmax(spec[sel])])
-        al, be, ga = (20 * np.log10(spec[k + d] + 1e-30) for d in (-1, 0, 1))
-        den = al - 2 * be + ga
-        if den < 0:
-            return float((k + 0.5 * (al - ga) / den) * self.fs_d / nf)
-        return float(fr[k])
+        st = np.array(starts, dtype=np.int64)
+        ok = np.nonzero((st >= 0) & (st + m <= self.buf.size))[0]
+        if ok.size == 0:
+            return out
+        slot = self.slots[si]
+        if slot[5] is None:  # the DFT basis of this family (made once)
+            grid = slot[1] * np.arange(0.92, 1.0801, 0.0025)
+            t = np.arange(m) / self.fs_d
+            slot[5] = (grid, (np.hanning(m)[:, None] * np.exp(-2j * math.pi * t[:, None]
+                                                             * grid[None, :])
+                              ).astype(np.complex64))
+        grid, basis = slot[5]
+        tails = self.buf[st[ok][:, None] + np.arange(m)[None, :]]
+        db = 20 * np.log10(np.abs(tails @ basis) + 1e-30)
+        k = np.argmax(db, axis=1)
+        for row, (j, kk) in enumerate(zip(ok.tolist(), k.tolist())):
+            f = float(grid[kk])
+            if 0 < kk < grid.size - 1:
+                al, be, ga = db[row, kk - 1], db[row, kk], db[row, kk + 1]
+                den = al - 2 * be + ga
+                if den < 0:
+                    f += 0.5 * (al - ga) / den * float(grid[1] - grid[0])
+            out[j] = f
+        return out
 
 
 def _aic_split(aw: np.ndarray) -> np.ndarray:
