@@ -1175,12 +1175,19 @@ class _TemplateScan:
         ok = np.nonzero((st >= 0) & (st + self.L + 2 * self.A <= self.buf.size))[0]
         if ok.size == 0:
             return out
-        w = self.buf[st[ok][:, None] + np.arange(self.L + 2 * self.A)[None, :]].astype(
-            np.float64)
-        win = np.lib.stride_tricks.sliding_window_view(w, self.L, axis=1)
-        win = win - win.mean(axis=2, keepdims=True)
-        c = np.einsum("ksl,l->ks", win, self.slots[0][2]) / (
-            np.linalg.norm(win, axis=2) + 1e-20)
+        w = self.buf[st[ok][:, None] + np.arange(self.L + 2 * self.A)[None, :]]
+        # every other shift (as for the templates); the template has zero mean,
+        # so the windows' own means do not change the products
+        win = np.lib.stride_tricks.sliding_window_view(w, self.L, axis=1)[:, ::2]
+        cs = np.concatenate([np.zeros((w.shape[0], 1)), np.cumsum(
+            w.astype(np.float64), axis=1), ], axis=1)
+        cs2 = np.concatenate([np.zeros((w.shape[0], 1)), np.cumsum(
+            w.astype(np.float64) ** 2, axis=1)], axis=1)
+        L = self.L
+        ssum = (cs[:, L:] - cs[:, :-L])[:, ::2]
+        ssq = (cs2[:, L:] - cs2[:, :-L])[:, ::2]
+        norm = np.sqrt(np.maximum(ssq - ssum * ssum / L, 0.0)) + 1e-20
+        c = np.einsum("ksl,l->ks", win, self.slots[0][2].astype(np.float32)) / norm
         for i, m in zip(ok.tolist(), (np.abs(c).max(axis=1) >= 0.55).tolist()):
             out[i] = m
         return out
