@@ -1118,8 +1118,10 @@ class _TemplateScan:
         corr = (np.einsum("ksl,jl->kjs", win[:, ::2].astype(np.float32),
                           cen.astype(np.float32)) / norms[:, ::2, 0][:, None, :]).max(axis=2)
         corr = np.maximum(corr, corr.T)
-        seed = int(np.argmax(corr.sum(axis=1)))
-        fam = np.nonzero(corr[seed] >= 0.5)[0]
+        # the most typical example: most others at 0.5 or more (ties: largest sum)
+        near = 0.5 if slot is self.slots[0] else 0.4
+        seed = int(np.argmax((corr >= near).sum(axis=1) + 1e-3 * corr.sum(axis=1)))
+        fam = np.nonzero(corr[seed] >= near)[0]
         if fam.size < (max(6, x.shape[0] // 4) if slot is self.slots[0] else 6):
             return False
         ref = cen[fam].mean(axis=0)
@@ -1141,7 +1143,11 @@ class _TemplateScan:
         fr = np.arange(spec.size) * (self.fs_d / nf)
         spec[(fr < 300.0) | (fr > 0.45 * self.fs_d)] = 0.0
         if slot is self.slots[1]:
+            # a second click comes at one fraction of the period; a family of
+            # other sounds does not: no consistent delay, no second template
             self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
+            if self.phase is None:
+                return False
         slot[0] = np.conj(sp_fft.rfft(h, n=self.nfft)).astype(np.complex64)
         slot[1] = float(fr[int(np.argmax(spec))])
         slot[2] = h
