@@ -989,15 +989,16 @@ class _TemplateScan:
     **Templates.**  The first ``n_examples`` accepted clicks (decimated,
     ``length_s`` long from just before their onsets) are compared by
     normalised correlation (best over +-0.7 ms shifts); the group that
-    correlates 0.5 or more with its most typical member is aligned on its
-    average and averaged: the main template.  Clicks that later correlate
-    under 0.55 with it (accepted ones, and rejected candidates with a clear
-    onset and ring) are collected; once a group of 6 or more of them forms
-    (the brighter, shorter second click of a two-click engine), and its
-    average is not the main template again, it gives a second template.  The
-    second click's delay after its main click, as a fraction of the period
-    before, is learnt from that group (median, when the interquartile range
-    is 0.05 or less).
+    correlates 0.5 or more with its most typical member (the one with most
+    such neighbours) is aligned on its average and averaged: the main
+    template.  Clicks that later correlate under 0.55 with it (accepted ones,
+    and rejected candidates with a clear onset and ring) are collected; a
+    group of 6 or more of them at 0.4 (reverberation smears the brighter,
+    shorter second click of a two-click engine) gives a second template when
+    its average is not the main template again and its members come at one
+    fraction of the period after their main clicks (median delay over the
+    period before, interquartile range 0.05 or less): that fraction is kept
+    for the cycle-aware search.
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
