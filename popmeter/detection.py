@@ -989,16 +989,15 @@ class _TemplateScan:
     **Templates.**  The first ``n_examples`` accepted clicks (decimated,
     ``length_s`` long from just before their onsets) are compared by
     normalised correlation (best over +-0.7 ms shifts); the group that
-    correlates 0.5 or more with its most typical member (the one with most
-    such neighbours) is aligned on its average and averaged: the main
-    template.  Clicks that later correlate under 0.55 with it (accepted ones,
-    and rejected candidates with a clear onset and ring) are collected; a
-    group of 6 or more of them at 0.4 (reverberation smears the brighter,
-    shorter second click of a two-click engine) gives a second template when
-    its average is not the main template again and its members come at one
-    fraction of the period after their main clicks (median delay over the
-    period before, interquartile range 0.05 or less): that fraction is kept
-    for the cycle-aware search.
+    correlates 0.5 or more with its most typical member is aligned on its
+    average and averaged: the main template.  Clicks that later correlate
+    under 0.55 with it (accepted ones, and rejected candidates with a clear
+    onset and ring) are collected; once a group of 6 or more of them forms
+    (the brighter, shorter second click of a two-click engine), and its
+    average is not the main template again, it gives a second template.  The
+    second click's delay after its main click, as a fraction of the period
+    before, is learnt from that group (median, when the interquartile range
+    is 0.05 or less).
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
@@ -1119,10 +1118,8 @@ class _TemplateScan:
         corr = (np.einsum("ksl,jl->kjs", win[:, ::2].astype(np.float32),
                           cen.astype(np.float32)) / norms[:, ::2, 0][:, None, :]).max(axis=2)
         corr = np.maximum(corr, corr.T)
-        # the most typical example: most others at 0.5 or more (ties: largest sum)
-        near = 0.5 if slot is self.slots[0] else 0.4
-        seed = int(np.argmax((corr >= near).sum(axis=1) + 1e-3 * corr.sum(axis=1)))
-        fam = np.nonzero(corr[seed] >= near)[0]
+        seed = int(np.argmax(corr.sum(axis=1)))
+        fam = np.nonzero(corr[seed] >= 0.5)[0]
         if fam.size < (max(6, x.shape[0] // 4) if slot is self.slots[0] else 6):
             return False
         ref = cen[fam].mean(axis=0)
@@ -1144,11 +1141,7 @@ class _TemplateScan:
         fr = np.arange(spec.size) * (self.fs_d / nf)
         spec[(fr < 300.0) | (fr > 0.45 * self.fs_d)] = 0.0
         if slot is self.slots[1]:
-            # a second click comes at one fraction of the period; a family of
-            # other sounds does not: no consistent delay, no second template
             self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
-            if self.phase is None:
-                return False
         slot[0] = np.conj(sp_fft.rfft(h, n=self.nfft)).astype(np.complex64)
         slot[1] = float(fr[int(np.argmax(spec))])
         slot[2] = h
@@ -1838,7 +1831,12 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         # the matched-filter pass: clicks like the recording's own, not already found
         times = np.array([c.time_s for c in kept])
         extra: list[Click] = []
+        # (not after the last click the frame detector found: a live session
+        # ends a run 1 s after that click, so the offline run ends there too)
+        last = times[-1]
         for c in det._mf.clicks:  # in time order per template: merge the two
+            if c.time_s > last:
+                continue
             j = int(np.searchsorted(times, c.time_s))
             if any(abs(times[m] - c.time_s) < 0.010 for m in (j - 1, j) if 0 <= m < times.size):
                 continue
@@ -1890,8 +1888,8 @@ def finish_detection(detector: ClickDetector, clicks: list[Click], *,
     (:func:`reject_atypical`), rejected candidates that ring like a family
     are taken back, a lone transient without an exponential decay is
     dropped, the clicks found by the matched-filter pass and not already
-    present (none within 10 ms) are added, and one or two clicks per cycle
-    is decided (:func:`assign_kinds`).  Live capture calls this on the stream so far
+    present (none within 10 ms), up to the last click found so far, are
+    added, and one or two clicks per cycle is decided (:func:`assign_kinds`).  Live capture calls this on the stream so far
     (it does not change the detector).
 
     Parameters
