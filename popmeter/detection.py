@@ -1831,9 +1831,12 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         # the matched-filter pass: clicks like the recording's own, not already found
         times = np.array([c.time_s for c in kept])
         extra: list[Click] = []
-        # (not after the last click the frame detector found: a live session
-        # ends a run 1 s after that click, so the offline run ends there too)
-        last = times[-1]
+        # (not later than one local interval after the last click the frame
+        # detector found: the trailing second click of a two-click engine
+        # belongs to the run, pops heard only by the filter long after it
+        # do not; a live session ends a run 1 s after that click)
+        gaps = np.diff(times[-9:])
+        last = times[-1] + (float(np.median(gaps)) if gaps.size else 0.0)
         for c in det._mf.clicks:  # in time order per template: merge the two
             if c.time_s > last:
                 continue
