@@ -544,12 +544,14 @@ def build_timeline(
             "engine)"
         )
 
-    # First / last click: the main clicks, plus second clicks inside the run.
+    # First / last click: the main clicks, plus second clicks inside the run:
+    # closer to the first (last) main click than a stall would be, so that a
+    # second click whose main click was missed or mislabelled still counts.
     if t.size:
         lo, hi = float(t[0]), float(t[-1])
         if second.size and t.size > 1:
-            p0 = float(np.median(np.diff(t[:6])))
-            p1 = float(np.median(np.diff(t[-6:])))
+            p0 = stall_factor * float(np.median(np.diff(t[:6])))
+            p1 = stall_factor * float(np.median(np.diff(t[-6:])))
             inside = second[(second >= lo - p0) & (second <= hi + p1)]
             if inside.size:
                 lo, hi = min(lo, float(inside[0])), max(hi, float(inside[-1]))

@@ -351,6 +351,25 @@ def test_two_click_engine_counts_main_clicks_only():
     assert tl2.summary["last_click_s"] == second[-1]
 
 
+def test_second_click_before_a_missed_first_main_click_starts_the_run():
+    """A two-click engine whose first main click was missed (or labelled as a
+    second click): the run starts at the earlier second click, as long as it
+    is closer to the first main click than a stall; a second click further
+    away than a stall is not part of the run."""
+    run = make_run(seed=15)
+    main = run["times"]
+    period0 = float(np.median(np.diff(main[:6])))
+    second = list(main[:-1] + 0.45 * np.diff(main))
+    early = main[0] - 2.0 * period0  # main click of that cycle missed
+    clicks = [click(t, 0) for t in main] + [click(t, 1) for t in second + [early]]
+    tl = build_timeline(clicks, duration_s=run["duration_s"], clicks_per_cycle=2)
+    assert tl.summary["first_click_s"] == pytest.approx(early)
+    far = main[0] - 6.0 * period0
+    clicks = [click(t, 0) for t in main] + [click(t, 1) for t in second + [far]]
+    tl = build_timeline(clicks, duration_s=run["duration_s"], clicks_per_cycle=2)
+    assert tl.summary["first_click_s"] == pytest.approx(main[0])
+
+
 def test_two_click_engine_stall_starts_at_the_last_second_click():
     run = make_run(seed=14)
     main = list(run["times"])
