@@ -35,7 +35,7 @@ import numpy as np
 
 from popmeter import plate
 from popmeter.plate import FloatOrArray
-from popmeter.profile import BoatProfile, load_profile
+from popmeter.profile import BoatProfile, Quantity, load_profile
 from popmeter.safety import SAFETY_LINE
 
 #: Outlet end corrections as a fraction of the tube radius.
@@ -197,58 +197,43 @@ def forward(values: dict[str, Any], *, shape: str, outlet: str, wetted: bool) ->
             "rigidity_n_m": d}
 
 
-def nominal_values(profile: BoatProfile) -> dict[str, float]:
-    """The profile's nominal inputs as the SI dictionary :func:`forward` takes."""
+def input_quantities(profile: BoatProfile) -> dict[str, Quantity]:
+    """Every input of :func:`forward` as a :class:`~popmeter.profile.Quantity`
+    (SI value and plus-or-minus tolerance); the tube count is exact."""
     dia = profile.diaphragm
-    v = {
-        "inner_diameter_m": profile.tubes.inner_diameter_m.value,
-        "tube_length_m": profile.tubes.length_m.value,
-        "count": float(profile.tubes.count),
-        "gas_volume_m3": profile.boiler.gas_volume_m3.value,
-        "polytropic_index": profile.gas.polytropic_index.value,
-        "pressure_pa": profile.gas.pressure_pa.value,
+    q = {
+        "inner_diameter_m": profile.tubes.inner_diameter_m,
+        "tube_length_m": profile.tubes.length_m,
+        "count": Quantity(float(profile.tubes.count), 0.0),
+        "gas_volume_m3": profile.boiler.gas_volume_m3,
+        "polytropic_index": profile.gas.polytropic_index,
+        "pressure_pa": profile.gas.pressure_pa,
     }
     if dia.shape == "circle":
         assert dia.diameter_m is not None
-        v["diameter_m"] = dia.diameter_m.value
+        q["diameter_m"] = dia.diameter_m
     else:
         assert dia.width_m is not None and dia.length_m is not None
-        v["width_m"] = dia.width_m.value
-        v["length_m"] = dia.length_m.value
-    v.update({
-        "thickness_m": dia.thickness_m.value,
-        "youngs_modulus_pa": dia.youngs_modulus_pa.value,
-        "poisson_ratio": dia.poisson_ratio.value,
-        "density_kg_m3": dia.density_kg_m3.value,
-        "water_density_kg_m3": profile.water.density_kg_m3.value,
+        q["width_m"] = dia.width_m
+        q["length_m"] = dia.length_m
+    q.update({
+        "thickness_m": dia.thickness_m,
+        "youngs_modulus_pa": dia.youngs_modulus_pa,
+        "poisson_ratio": dia.poisson_ratio,
+        "density_kg_m3": dia.density_kg_m3,
+        "water_density_kg_m3": profile.water.density_kg_m3,
     })
-    return v
+    return q
+
+
+def nominal_values(profile: BoatProfile) -> dict[str, float]:
+    """The profile's nominal inputs as the SI dictionary :func:`forward` takes."""
+    return {k: q.value for k, q in input_quantities(profile).items()}
 
 
 def tolerances(profile: BoatProfile) -> dict[str, float]:
     """Plus-or-minus tolerance (SI) of each key of :func:`nominal_values` (0 for the tube count)."""
-    dia = profile.diaphragm
-    t = {
-        "inner_diameter_m": profile.tubes.inner_diameter_m.tol,
-        "tube_length_m": profile.tubes.length_m.tol,
-        "count": 0.0,
-        "gas_volume_m3": profile.boiler.gas_volume_m3.tol,
-        "polytropic_index": profile.gas.polytropic_index.tol,
-        "pressure_pa": profile.gas.pressure_pa.tol,
-        "thickness_m": dia.thickness_m.tol,
-        "youngs_modulus_pa": dia.youngs_modulus_pa.tol,
-        "poisson_ratio": dia.poisson_ratio.tol,
-        "density_kg_m3": dia.density_kg_m3.tol,
-        "water_density_kg_m3": profile.water.density_kg_m3.tol,
-    }
-    if dia.shape == "circle":
-        assert dia.diameter_m is not None
-        t["diameter_m"] = dia.diameter_m.tol
-    else:
-        assert dia.width_m is not None and dia.length_m is not None
-        t["width_m"] = dia.width_m.tol
-        t["length_m"] = dia.length_m.tol
-    return t
+    return {k: q.tol for k, q in input_quantities(profile).items()}
 
 
 @dataclass(frozen=True)
