@@ -32,7 +32,13 @@ def make_batch(folder: Path, *, units: int, duration_s: float, sample_rate_hz: i
     import numpy as np
 
     from popmeter.profile import parse_profile, write_profile
-    from popmeter.synth import DEMO_BOAT_RAW, DEMO_SPEC_TOML, scenario_from_profile, write_run
+    from popmeter.synth import (
+        DEMO_BOAT_RAW,
+        DEMO_SPEC_TOML,
+        scenario_from_profile,
+        write_header_only_wav,
+        write_run,
+    )
 
     stamp = folder / "settings.json"
     settings = {"units": units, "duration_s": duration_s, "sample_rate_hz": sample_rate_hz,
@@ -67,13 +73,8 @@ def make_batch(folder: Path, *, units: int, duration_s: float, sample_rate_hz: i
         )
         write_run(recordings / f"BM-{i + 1:04d}.flac", scenario)
     # a recorder that died after the header: 30 s promised, no audio follows
-    frames = 30 * sample_rate_hz
-    header = (b"RIFF" + (36 + 2 * frames).to_bytes(4, "little") + b"WAVEfmt "
-              + (16).to_bytes(4, "little") + (1).to_bytes(2, "little")
-              + (1).to_bytes(2, "little") + sample_rate_hz.to_bytes(4, "little")
-              + (2 * sample_rate_hz).to_bytes(4, "little") + (2).to_bytes(2, "little")
-              + (16).to_bytes(2, "little") + b"data" + (2 * frames).to_bytes(4, "little"))
-    (recordings / f"BM-{units:04d}.wav").write_bytes(header)
+    write_header_only_wav(recordings / f"BM-{units:04d}.wav", sample_rate_hz=sample_rate_hz,
+                          promised_s=30.0)
     stamp.write_text(json.dumps(settings))
     print(f"generated {units} recordings in {time.perf_counter() - started:.1f} s")
     return folder

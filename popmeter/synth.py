@@ -1292,6 +1292,22 @@ DEMO_BATCH: dict[str, tuple[str, float, int, dict[str, Any]]] = {
 DEMO_CORRUPT_SERIAL = "KW-2611-009"
 
 
+def write_header_only_wav(path: str | Path, *, sample_rate_hz: int, promised_s: float) -> Path:
+    """Write a corrupt recording: a 16-bit mono WAV header promising
+    ``promised_s`` seconds at ``sample_rate_hz`` (Hz), and no audio after it,
+    as left by a recorder that died right after starting. For tests of the
+    error path."""
+    frames = round(promised_s * sample_rate_hz)
+    header = (b"RIFF" + (36 + 2 * frames).to_bytes(4, "little") + b"WAVEfmt "
+              + (16).to_bytes(4, "little") + (1).to_bytes(2, "little")
+              + (1).to_bytes(2, "little") + int(sample_rate_hz).to_bytes(4, "little")
+              + (2 * int(sample_rate_hz)).to_bytes(4, "little") + (2).to_bytes(2, "little")
+              + (16).to_bytes(2, "little") + b"data" + (2 * frames).to_bytes(4, "little"))
+    path = Path(path)
+    path.write_bytes(header)
+    return path
+
+
 def make_demo_bundle(out_dir: str | Path, *, sample_rate_hz: int = 22050) -> Path:
     """Write the demo recordings, boat, spec and batch into ``out_dir``.
 
@@ -1385,14 +1401,8 @@ def make_demo_bundle(out_dir: str | Path, *, sample_rate_hz: int = 22050) -> Pat
         run(batch / f"{serial}.flac", factor, **params)
         lines.append(f"  {serial}.flac  {what}")
     # a recorder that died after writing the header: a WAV that holds no audio
-    corrupt = batch / f"{DEMO_CORRUPT_SERIAL}.wav"
-    frames = 30 * sample_rate_hz
-    header = (b"RIFF" + (36 + 2 * frames).to_bytes(4, "little") + b"WAVEfmt "
-              + (16).to_bytes(4, "little") + (1).to_bytes(2, "little")
-              + (1).to_bytes(2, "little") + sample_rate_hz.to_bytes(4, "little")
-              + (2 * sample_rate_hz).to_bytes(4, "little") + (2).to_bytes(2, "little")
-              + (16).to_bytes(2, "little") + b"data" + (2 * frames).to_bytes(4, "little"))
-    corrupt.write_bytes(header)
+    write_header_only_wav(batch / f"{DEMO_CORRUPT_SERIAL}.wav", sample_rate_hz=sample_rate_hz,
+                          promised_s=30.0)
     lines += [f"  {DEMO_CORRUPT_SERIAL}.wav   corrupt: a WAV header promising 30 s, no audio",
               "",
               "Intended verdicts against demo_spec.toml: 001-003 PASS; 004 (thin) and",
