@@ -1162,8 +1162,11 @@ def listen(
     switch_s = sys.getswitchinterval()
     sys.setswitchinterval(GIL_SWITCH_INTERVAL_S)
     try:
+        # latency="high": the device's larger buffer. Capture needs no low
+        # latency (clicks are timed by their sample position), and a bigger
+        # buffer rides out moments when the analysis keeps the callback waiting.
         stream = sd.InputStream(device=dev.index, channels=channels, samplerate=rate,
-                                dtype="float32", callback=session.callback,
+                                dtype="float32", latency="high", callback=session.callback,
                                 finished_callback=session.stream_finished)
     except Exception as exc:  # noqa: BLE001 - PortAudioError and friends
         session.finish()

@@ -612,8 +612,12 @@ class FakeStream:
     ``interrupt_after`` frames: Ctrl-C reaches the main thread.
     """
 
-    def __init__(self, sd, *, device, channels, samplerate, dtype, callback, finished_callback):
+    def __init__(self, sd, *, device, channels, samplerate, dtype, callback, finished_callback,
+                 latency=None):
         self.sd, self.callback, self.finished = sd, callback, finished_callback
+        # capture asks for the device's larger buffer (no need for low latency)
+        assert latency == "high"
+        self.latency = latency
         self.channels, self.samplerate = channels, samplerate
         self.active = False
         self._stop = threading.Event()

@@ -30,7 +30,12 @@ SR = 48000
 
 
 def _start_server(name, log_dir):
-    server = DummyJackServer(name, sample_rate_hz=SR, log_path=log_dir / f"{name}.log")
+    # A 2048-frame period (43 ms): the dummy server runs without real-time
+    # priority on a shared 2-core machine, and the capture's Python callback
+    # must win the interpreter lock within one period; sound-card drivers
+    # commonly buffer as much or more (common practice, no source).
+    server = DummyJackServer(name, sample_rate_hz=SR, period_frames=2048,
+                             log_path=log_dir / f"{name}.log")
     try:
         server.start()
     except JackUnavailable as exc:
@@ -153,7 +158,7 @@ def test_listen_keeps_every_sample_and_live_clicks_match_offline(jack_server, tm
     assert [t for t in stream_t if np.min(np.abs(known - t)) > 1e-3] == []
     # detection latency in audio: onset -> audio received when reported
     latency_s = [(c["frames_received"] - c["sample"]) / SR for c in live["stream_clicks"]]
-    assert max(latency_s) <= 0.050 + 1024 / SR  # 50 ms + one JACK period (and a margin)
+    assert max(latency_s) <= 0.050 + jack_server.period_frames / SR  # 50 ms + one JACK period
 
 
 def test_devices_lists_the_jack_input_as_default(jack_server):
