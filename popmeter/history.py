@@ -29,6 +29,8 @@ from __future__ import annotations
 import json
 import math
 import os
+import sqlite3
+import time
 import zlib
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
@@ -524,6 +526,28 @@ def _ident(name: str) -> str:
     return name
 
 
+def _retry_when_locked(action: Callable[[], Any], timeout_s: float) -> Any:
+    """Run ``action``, retrying while SQLite says the database is locked.
+
+    Switching a brand-new database to WAL needs an exclusive lock. While a
+    second station holds a write lock on the same new file (it is creating
+    the tables), SQLite answers "database is locked" at once instead of
+    waiting the busy timeout: a reader asking to escalate while another
+    connection writes would otherwise deadlock (SQLite documentation,
+    "File Locking And Concurrency In SQLite Version 3"). The switch runs
+    outside any transaction, so it is simply retried here (every 50 ms, up to
+    ``timeout_s`` seconds). Seen once in CI as a failed station.
+    """
+    deadline = time.monotonic() + timeout_s
+    while True:
+        try:
+            return action()
+        except sqlite3.OperationalError as error:
+            if "locked" not in str(error) or time.monotonic() > deadline:
+                raise
+            time.sleep(0.05)
+
+
 def _sqlite_events(engine: Engine, busy_timeout_s: float) -> None:
     """WAL, busy timeout, foreign keys, and BEGIN IMMEDIATE for every transaction
     (SQLAlchemy documentation, "Serializable isolation / Savepoints /
@@ -534,7 +558,7 @@ def _sqlite_events(engine: Engine, busy_timeout_s: float) -> None:
         dbapi_conn.isolation_level = None  # the driver must not emit BEGIN itself
         cur = dbapi_conn.cursor()
         cur.execute(f"PRAGMA busy_timeout = {int(busy_timeout_s * 1000)}")
-        cur.execute("PRAGMA journal_mode = WAL")
+        _retry_when_locked(lambda: cur.execute("PRAGMA journal_mode = WAL"), busy_timeout_s)
         cur.execute("PRAGMA synchronous = NORMAL")
         cur.execute("PRAGMA foreign_keys = ON")
         cur.close()
