@@ -284,3 +284,29 @@ def test_a_writer_that_waits_too_long_gets_a_clear_error(tmp_path):
     with History(db) as again:
         again.record_batch("B")
         assert again.batch_ids() == ["B"]
+
+
+def test_a_station_waits_while_another_creates_the_database(tmp_path):
+    """A second station opening a brand-new SQLite history while the first
+    holds its write lock (creating the tables) waits for it instead of failing
+    with "database is locked" (SQLite does not apply the busy timeout to the
+    switch to WAL there; SQLite documentation, "File Locking And Concurrency
+    In SQLite Version 3")."""
+    import sqlite3
+    import threading
+    import time
+
+    path = tmp_path / "new.sqlite"
+    first = sqlite3.connect(path, isolation_level=None, check_same_thread=False)
+    first.execute("BEGIN IMMEDIATE")
+    first.execute("CREATE TABLE station_a (i INTEGER)")
+    releaser = threading.Timer(0.5, lambda: first.execute("COMMIT"))
+    releaser.start()
+    started = time.monotonic()
+    try:
+        with History(path, busy_timeout_s=10.0) as h:
+            assert h.batch_ids() == []
+    finally:
+        releaser.join()
+        first.close()
+    assert time.monotonic() - started >= 0.4  # it waited for the first station
