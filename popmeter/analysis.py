@@ -204,7 +204,6 @@ def analyze_file(
     """
     from popmeter.audio_io import open_stream
     from popmeter.detection import detect_clicks_in_blocks
-    from popmeter.timeline import build_timeline
 
     profile = _as_profile(boat)
     qc_spec = _as_spec(spec)
@@ -230,7 +229,6 @@ def analyze_file(
         spec=qc_spec,
         ignition_at_s=ignition_at_s,
         warnings=warnings,
-        build_timeline=build_timeline,
     )
 
 
@@ -242,15 +240,16 @@ def analyze_clicks(
     spec: Any = None,
     ignition_at_s: float | None = None,
     warnings: list[str] | None = None,
-    build_timeline: Any = None,
 ) -> Analysis:
     """Everything after detection: timeline, stiffness and verdict.
 
-    Shared by :func:`analyze_file` and live capture, so a run is judged the
-    same way whichever path its clicks came from.
+    ``detection`` is a :class:`popmeter.detection.DetectionResult` and
+    ``source`` describes the audio it came from; :func:`analyze_file` calls
+    this after reading, and any other source of clicks can be judged the
+    same way.
     """
-    if build_timeline is None:
-        from popmeter.timeline import build_timeline
+    from popmeter.timeline import build_timeline
+
     warnings = list(warnings or [])
     warnings.extend(detection.warnings)
     timeline = build_timeline(
