@@ -78,7 +78,10 @@ The steps, and the published method each follows:
    and fade pops, second clicks) stand out there because the template
    gathers the whole ring's energy.  Once the second click's delay (as a
    fraction of the period) is known, a narrow window at each expected second
-   click is searched with a lower threshold.  The first up to 30 s are kept
+   click is searched with a lower threshold.  A second click too weak for
+   the frame detector is found by folding: the band energy of 64 or more
+   cycles averaged by phase (synchronous averaging) shows where in the cycle
+   it lies, and its template is averaged from there.  The first up to 30 s are kept
    so that the clicks before the templates existed are found too.  See
    :class:`_TemplateScan`.  These clicks join in the whole-recording passes
    (:func:`finish_detection`), not in ``process``'s output.
@@ -997,7 +1000,10 @@ class _TemplateScan:
     average is not the main template again, it gives a second template.  The
     second click's delay after its main click, as a fraction of the period
     before, is learnt from that group (median, when the interquartile range
-    is 0.05 or less).
+    is 0.05 or less).  When no such group forms (second clicks too weak for
+    the frame detector), the cycles are folded at fixed counts of accepted
+    clicks (the 160th, then every 256th, at most 8 times) and the template is
+    made at the phase where their energy rises (:meth:`_fold_second`).
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
@@ -1015,8 +1021,8 @@ class _TemplateScan:
     no accepted click within 10 ms.  With the second click's delay known,
     the largest envelope peak within +-(1 ms + 3 % of the delay) of each
     expected second click counts at 3 times the floor alone if it rises
-    3.5 dB over the 2-4 ms before it (a narrow search: few noise peaks
-    compete).
+    1.6 dB over the 2-4 ms before it (a narrow search: few noise peaks
+    compete; the filter's own response to the ring reaches back that far).
 
     **Streaming.**  Chunks are fixed in the stream, each template is frozen
     the moment its last example is measured (set by the audio alone), and a
@@ -1061,6 +1067,14 @@ class _TemplateScan:
         self.mask = ((f >= 300.0) & (f <= 0.45 * fs_d)).astype(np.float32)
         self._spec_key: int | None = None  # chunk whose spectrum is in _spec
         self._spec = np.zeros(0, dtype=np.complex64)
+        # second template by folding (see _fold_second): tried at fixed counts
+        # of accepted clicks, so the result does not depend on block sizes
+        self.fold_every = 256
+        self.fold_tries = 8
+        self._next_fold = self.K + 128
+        self._folds = 0
+        self._n_accepted = 0
+        self._fold_sos = signal.butter(4, 500.0, "highpass", fs=fs_d, output="sos")
 
     @property
     def templates(self) -> list[float]:
@@ -1076,6 +1090,13 @@ class _TemplateScan:
         main, second = self.slots
         if accepted:
             self.onsets.append(od)
+            self._n_accepted += 1
+            if (main[0] is not None and second[0] is None and self._n_accepted >= self._next_fold
+                    and self._folds < self.fold_tries):
+                self._next_fold = self._n_accepted + self.fold_every
+                self._folds += 1
+                if self._fold_second(od):
+                    self.examples, self.example_onsets = [], []
         elif main[0] is None:
             return
         if second[0] is not None:
@@ -1136,12 +1157,17 @@ class _TemplateScan:
         if (other is not None and slot is not self.slots[0]
                 and float(np.max(np.abs(np.correlate(np.pad(other, A), h, "valid")))) > 0.7):
             return False  # the main click again
+        if slot is self.slots[1]:
+            self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
+        self._install(slot, h)
+        return True
+
+    def _install(self, slot: list, h: np.ndarray) -> None:
+        """Make ``h`` (zero mean, unit norm, onset ``P`` samples in) the template of ``slot``."""
         nf = 4 * self.nfft
         spec = np.abs(sp_fft.rfft(h, n=nf))
         fr = np.arange(spec.size) * (self.fs_d / nf)
         spec[(fr < 300.0) | (fr > 0.45 * self.fs_d)] = 0.0
-        if slot is self.slots[1]:
-            self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
         slot[0] = np.conj(sp_fft.rfft(h, n=self.nfft)).astype(np.complex64)
         slot[1] = float(fr[int(np.argmax(spec))])
         slot[2] = h
@@ -1151,6 +1177,179 @@ class _TemplateScan:
         slot[4] = 1.0
         env = self._envelope(noise[:self.C + self.E + self.E2 + self.L - 1], slot[0])
         slot[4] = float(np.percentile(self._bin_medians(env), 10)) / float(np.median(env))
+
+    def _fold_second(self, upto: int) -> bool:
+        """Find a second click too weak for the frame detector by folding the cycles.
+
+        Synchronous averaging, or epoch folding (Leahy et al., ApJ 266, 1983;
+        Braun, Mech. Syst. Signal Process. 25, 2011; both from memory): the
+        in-band energy (500 Hz high-pass) of up to the last 20 s of complete
+        cycles between main clicks (periods within 15 % of the median of the 9
+        around) is cut into 80 bins of phase from 0.1 to 0.9 of the local
+        period (that median), each cycle divided by its own median, and the
+        cycles averaged.  Noise averages flat; a click at a fixed fraction of
+        the period adds up.  A second click is there when one bin rises 1.15
+        times or more over the largest of the 2-5 bins before it and by 6 or
+        more standard errors (the cycle-to-cycle scatter over the square root
+        of the number of cycles).
+
+        Its template is the average of the windows at that phase, each
+        aligned first on the peak of its 1 ms envelope at the ring frequency
+        found there (the mean power spectrum over that of the window before),
+        then three times on the average by correlation (within +-0.7 ms), and
+        cut from ``P`` before the average's onset (its sharpest energy rise,
+        refined by the AIC change point).  It is kept when:
+
+        * the even and the odd cycles, each aligned on their own average,
+          give the same waveform (correlation 0.6 or more): a click, not
+          noise the alignment locked on;
+        * the average's energy jumps 12 dB or more within 0.5 ms at the onset
+          (over the 2 ms before).  A click starts abruptly; the room's echo
+          of the main click, which folds just as well at a steady rate,
+          builds up gradually (in a reverberant room this also refuses real
+          second clicks, which then rest on the other path);
+        * it is not the main click again (correlation 0.95 or less);
+        * the delays of the examples agree (:meth:`_learn_phase`,
+          interquartile range 0.15 of the period or less).
+
+        Returns True when the second template and the second click's phase
+        were set.  ``upto`` is the latest accepted onset (decimated); only
+        audio before it is used, so the result does not depend on block sizes.
+        """
+        fs = self.fs_d
+        lo = max(self.b0 + self.E + self.L, upto - round(20.0 * fs))
+        mains = self._mains(lo, upto + 1)
+        self.fold_info = {"cycles": 0}
+        if mains.size < 65:
+            return False
+        per = np.diff(mains).astype(np.float64)
+        loc = np.median(np.lib.stride_tricks.sliding_window_view(np.pad(per, 4, mode="edge"), 9),
+                        axis=1)
+        # whole cycles only: a missed main click doubles a period
+        ok = (np.abs(per / loc - 1.0) <= 0.15) & (per <= 0.5 * fs) & (per >= 0.01 * fs)
+        n = int(ok.sum())
+        self.fold_info["cycles"] = n
+        if n < 64:
+            return False
+        st, T = mains[:-1][ok], per[ok]
+        a0 = int(st[0]) - self.b0
+        seg = self.buf[a0:int(st[-1] + T[-1]) - self.b0 + 1].astype(np.float64)
+        y = signal.sosfilt(self._fold_sos, seg)
+        c = np.concatenate([[0.0], np.cumsum(y * y)])
+        nb = 80
+        fr = 0.1 + 0.8 * np.arange(nb + 1) / nb
+        k = np.arange(6, nb)
+        ref_i = k[:, None] - np.arange(2, 6)[None, :]
+
+        def fold(scale: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            # bins at the fractions fr of ``scale`` after each cycle's start;
+            # returns the rise's z and ratio per bin k
+            edges = np.round((st - st[0])[:, None] + scale[:, None] * fr[None, :]).astype(np.int64)
+            e = np.diff(c[edges], axis=1) / np.maximum(np.diff(edges, axis=1), 1)
+            e = e / (np.median(e, axis=1, keepdims=True) + 1e-30)
+            prof = e.mean(axis=0)
+            se = e.std(axis=0, ddof=1) / math.sqrt(n)
+            jr = np.argmax(prof[ref_i], axis=1)
+            ref = prof[ref_i][np.arange(k.size), jr]
+            ref_se = se[ref_i[np.arange(k.size), jr]]
+            z = (prof[k] - ref) / np.sqrt(se[k] ** 2 + ref_se ** 2 + 1e-30)
+            return z, prof[k] / ref
+
+        z, ratio = fold(loc[ok])
+        good = (ratio >= 1.15) & (z >= 6.0)
+        self.fold_info.update(z=float(z.max()), ratio=float(ratio.max()))
+        if not good.any():
+            return False
+        kb = int(k[int(np.argmax(np.where(good, z, -np.inf)))])
+        # the rise lies within the bin before the one that rose most, or in it
+        # (the delay follows the local period, the median of 9, rather than
+        # one cycle's: less scatter from the timing of single main clicks)
+        delay = (fr[kb - 1] + 0.5 * (fr[kb] - fr[kb - 1])) * loc[ok]
+        W = int(np.max(np.round(0.001 * fs + 0.03 * delay + (fr[1] - fr[0]) * T)))
+        P, A, L = self.P, self.A, self.L
+        m = 2 * W + round(0.004 * fs)  # the search window and 4 ms more
+        pre = m + round(0.004 * fs)
+        span = pre + 2 * W + 2 * L + 2 * A
+        starts = st + np.round(delay).astype(np.int64) - W - pre - self.b0
+        starts = starts[(starts >= 0) & (starts + span <= self.buf.size)]
+        if starts.size < 64:
+            return False
+        X = self.buf[starts[:, None] + np.arange(span)[None, :]].astype(np.float64)
+        X = signal.sosfilt(self._fold_sos, X, axis=1)
+        K = X.shape[0]
+        rows = np.arange(K)
+        # the ring frequency: mean power spectrum over the window there, over
+        # that of the same length before it
+        sp_on = np.mean(np.abs(sp_fft.rfft(X[:, pre:pre + m], axis=1)) ** 2, axis=0)
+        sp_off = np.mean(np.abs(sp_fft.rfft(X[:, pre - m:pre], axis=1)) ** 2, axis=0) + 1e-30
+        f = np.arange(sp_on.size) * fs / m
+        band = (f >= 500.0) & (f <= 0.45 * fs)
+        f2 = float(f[band][int(np.argmax((sp_on / sp_off)[band]))])
+        # first alignment: the peak of the 1 ms narrow-band envelope at f2
+        nav = max(4, round(0.001 * fs))
+        ph = np.exp(-2j * math.pi * f2 / fs * np.arange(span))
+        cs = np.cumsum(X * ph[None, :], axis=1)
+        envb = np.abs(cs[:, nav:] - cs[:, :-nav])  # column j: samples j+1 .. j+nav
+        pk = pre + np.argmax(envb[:, pre:pre + 2 * W], axis=1)
+        g0 = pk - P - A
+        ex = X[rows[:, None], g0[:, None] + np.arange(L + 2 * A)[None, :]]
+        win = np.lib.stride_tricks.sliding_window_view(ex, L, axis=1)  # K x (2A+1) x L
+        cs2 = np.concatenate([np.zeros((K, 1)), np.cumsum(ex * ex, axis=1)], axis=1)
+        norms = np.sqrt(np.maximum(cs2[:, L:] - cs2[:, :-L], 0.0)) + 1e-20
+
+        def align(sel: np.ndarray) -> np.ndarray:
+            # three times by correlation with the group's own average (shifts 0..2A)
+            ref_w = win[sel, A].mean(axis=0)
+            best = np.full(sel.size, A)
+            for _ in range(3):
+                ref_w = ref_w / (np.linalg.norm(ref_w) + 1e-20)
+                best = np.argmax(np.einsum("ksl,l->ks", win[sel], ref_w) / norms[sel], axis=1)
+                ref_w = np.mean(win[sel, best], axis=0)
+            return best
+
+        best = align(rows)
+        # a click, not noise the alignment has locked on: the even and the odd
+        # cycles, aligned each on their own average, give the same waveform
+        halves = []
+        for sel in (rows[0::2], rows[1::2]):
+            b = align(sel)
+            halves.append(np.mean(win[sel, b], axis=0))
+        ha = halves[0] - halves[0].mean()
+        hb = halves[1] - halves[1].mean()
+        agree = float(np.max(np.correlate(np.pad(ha, A), hb, "valid"))
+                      / (np.linalg.norm(ha) * np.linalg.norm(hb) + 1e-30))
+        g = g0 + best
+        # the onset within the average (the envelope may peak on a room
+        # reflection, well after it): the sharpest energy rise (0.5 ms after
+        # over the 2 ms before, 0.5 ms apart) over the window and what lies
+        # before it, then the AIC change point (Maeda 1985) within 1.5 ms
+        # before and 1 ms after that rise
+        q = int(np.min(g))
+        wide = X[rows[:, None], (g - q)[:, None] + np.arange(q + L // 2)[None, :]].mean(axis=0)
+        ce = np.concatenate([[0.0], np.cumsum(wide * wide)])
+        s5, s20 = round(0.0005 * fs), round(0.002 * fs)
+        t = np.arange(s20 + s5, wide.size - s5)
+        rise = (ce[t + s5] - ce[t]) / s5 / ((ce[t - s5] - ce[t - s5 - s20]) / s20 + 1e-30)
+        tr = int(t[int(np.argmax(rise))])
+        sharp = float(10 * np.log10(rise.max() + 1e-30))
+        a_, b_ = max(tr - round(0.0015 * fs), 0), min(tr + round(0.001 * fs), wide.size)
+        on_col = g - q + a_ + int(_aic_split(wide[None, a_:b_])[0])
+        cut = X[rows[:, None], (on_col - P)[:, None] + np.arange(L)[None, :]]
+        h = cut.mean(axis=0)
+        h = h - h.mean()
+        h = h / (np.linalg.norm(h) + 1e-20)
+        main_h = self.slots[0][2]
+        like_main = float(np.max(np.abs(np.correlate(np.pad(main_h, A), h, "valid"))))
+        onsets = starts + self.b0 + on_col
+        # (the fold has already shown where the click lies: the examples found
+        # in noise only have to agree loosely)
+        phase = self._learn_phase(onsets.tolist(), max_iqr=0.15)
+        self.fold_info.update(agree=agree, like_main=like_main, ring_hz=f2, sharp=sharp,
+                              phase=phase, kb=kb)
+        if agree < 0.6 or like_main > 0.95 or phase is None or sharp < 12.0:
+            return False
+        self.phase = phase
+        self._install(self.slots[1], h)
         return True
 
     def _mains(self, lo: int, hi: int) -> np.ndarray:
@@ -1192,11 +1391,11 @@ class _TemplateScan:
             out[i] = m
         return out
 
-    def _learn_phase(self, onsets: list[int]) -> float | None:
+    def _learn_phase(self, onsets: list[int], *, max_iqr: float = 0.05) -> float | None:
         """Delay of the second clicks after the main click / the period before it.
 
         From the second family's examples and the main clicks before them; None
-        unless 5 or more agree within an interquartile range of 0.05.
+        unless 5 or more agree within an interquartile range of ``max_iqr``.
         """
         if not onsets:
             return None
@@ -1211,7 +1410,7 @@ class _TemplateScan:
         if len(r) < 5:
             return None
         q1, q2, q3 = np.percentile(r, [25, 50, 75])
-        if q3 - q1 > 0.05 or not 0.1 <= q2 <= 0.9:
+        if q3 - q1 > max_iqr or not 0.1 <= q2 <= 0.9:
             return None
         return float(q2)
 
@@ -1377,7 +1576,7 @@ class _TemplateScan:
             i = a + int(np.argmax(env[a:b]))
             ref = env[max(i - r2, 0):max(i - r1, 1)].max()
             if (score[i] >= self.expect_threshold and env[i] >= env[i - 1]
-                    and env[i] >= env[i + 1] and env[i] >= 1.5 * ref):
+                    and env[i] >= env[i + 1] and env[i] >= 1.2 * ref):
                 out.add(i)
         return out
 
