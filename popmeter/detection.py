@@ -1074,6 +1074,7 @@ class _TemplateScan:
         self._next_fold = self.K + 128
         self._folds = 0
         self._n_accepted = 0
+        self.folded = False  # the second template came from folding
         self._fold_sos = signal.butter(4, 500.0, "highpass", fs=fs_d, output="sos")
 
     @property
@@ -1159,6 +1160,8 @@ class _TemplateScan:
             return False  # the main click again
         if slot is self.slots[1]:
             self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
+            if self.phase is None and self._folds == 0:
+                return False  # no place in the cycle: first let folding look for one
         self._install(slot, h)
         return True
 
@@ -1184,33 +1187,36 @@ class _TemplateScan:
         Synchronous averaging, or epoch folding (Leahy et al., ApJ 266, 1983;
         Braun, Mech. Syst. Signal Process. 25, 2011; both from memory): the
         in-band energy (500 Hz high-pass) of up to the last 20 s of complete
-        cycles between main clicks (periods within 15 % of the median of the 9
-        around) is cut into 80 bins of phase from 0.1 to 0.9 of the local
-        period (that median), each cycle divided by its own median, and the
-        cycles averaged.  Noise averages flat; a click at a fixed fraction of
-        the period adds up.  A second click is there when one bin rises 1.15
-        times or more over the largest of the 2-5 bins before it and by 6 or
-        more standard errors (the cycle-to-cycle scatter over the square root
-        of the number of cycles).
+        cycles between accepted clicks (intervals within 15 % of the median of
+        the 9 around: a missed click doubles one, a second click found splits
+        one) is cut into 80 bins of phase from 0.1 to 0.9 of the local period
+        (that median), each cycle divided by its own median, and the cycles
+        averaged.  Noise averages flat; a click at a fixed fraction of the
+        period adds up.  A second click is there when one bin rises 1.15 times
+        or more over the largest of the 2-5 bins before it, by 6 or more
+        standard errors (the cycle-to-cycle scatter over the square root of
+        the number of cycles), and by twice as many standard errors as any
+        rise more than 4 bins away.  (A room's echo of the main click folds,
+        at a steady rate, into many rises of like size, the random fine
+        structure of the reverberation; a second click is one rise well above
+        the rest.)
 
         Its template is the average of the windows at that phase, each
         aligned first on the peak of its 1 ms envelope at the ring frequency
         found there (the mean power spectrum over that of the window before),
         then three times on the average by correlation (within +-0.7 ms), and
         cut from ``P`` before the average's onset (its sharpest energy rise,
-        refined by the AIC change point).  It is kept when:
+        refined by the AIC change point).  The phase is the median delay of
+        the aligned examples over the local period.  The template is kept
+        when:
 
         * the even and the odd cycles, each aligned on their own average,
           give the same waveform (correlation 0.6 or more): a click, not
           noise the alignment locked on;
-        * the average's energy jumps 12 dB or more within 0.5 ms at the onset
-          (over the 2 ms before).  A click starts abruptly; the room's echo
-          of the main click, which folds just as well at a steady rate,
-          builds up gradually (in a reverberant room this also refuses real
-          second clicks, which then rest on the other path);
+        * the average's energy rises 5 dB or more within 0.5 ms at the onset
+          (over the 2 ms before): a click starts abruptly;
         * it is not the main click again (correlation 0.95 or less);
-        * the delays of the examples agree (:meth:`_learn_phase`,
-          interquartile range 0.15 of the period or less).
+        * the phase lies within the bins that rose.
 
         Returns True when the second template and the second click's phase
         were set.  ``upto`` is the latest accepted onset (decimated); only
@@ -1218,7 +1224,11 @@ class _TemplateScan:
         """
         fs = self.fs_d
         lo = max(self.b0 + self.E + self.L, upto - round(20.0 * fs))
-        mains = self._mains(lo, upto + 1)
+        # every accepted click (in noise a main click's correlation with the
+        # template is too uncertain to sort them): the period test below drops
+        # the intervals a second click splits
+        mains = np.array(self.onsets[bisect.bisect_left(self.onsets, lo):
+                                     bisect.bisect_right(self.onsets, upto)], dtype=np.int64)
         self.fold_info = {"cycles": 0}
         if mains.size < 65:
             return False
@@ -1257,10 +1267,16 @@ class _TemplateScan:
 
         z, ratio = fold(loc[ok])
         good = (ratio >= 1.15) & (z >= 6.0)
-        self.fold_info.update(z=float(z.max()), ratio=float(ratio.max()))
-        if not good.any():
+        ib = int(np.argmax(np.where(good, z, -np.inf)))
+        # one rise that stands out: a room's echo of the main click folds into
+        # many rises of like size (the random fine structure of the
+        # reverberation); a second click is one rise well above the rest
+        rest = np.abs(np.arange(k.size) - ib) > 4
+        z_rest = float(z[rest].max()) if rest.any() else 0.0
+        self.fold_info.update(z=float(z[ib]), ratio=float(ratio[ib]), z_rest=z_rest)
+        if not good.any() or z[ib] < 2.0 * max(z_rest, 1.0):
             return False
-        kb = int(k[int(np.argmax(np.where(good, z, -np.inf)))])
+        kb = int(k[ib])
         # the rise lies within the bin before the one that rose most, or in it
         # (the delay follows the local period, the median of 9, rather than
         # one cycle's: less scatter from the timing of single main clicks)
@@ -1271,7 +1287,8 @@ class _TemplateScan:
         pre = m + round(0.004 * fs)
         span = pre + 2 * W + 2 * L + 2 * A
         starts = st + np.round(delay).astype(np.int64) - W - pre - self.b0
-        starts = starts[(starts >= 0) & (starts + span <= self.buf.size)]
+        keep = (starts >= 0) & (starts + span <= self.buf.size)
+        starts, st_k, loc_k = starts[keep], st[keep], loc[ok][keep]
         if starts.size < 64:
             return False
         X = self.buf[starts[:, None] + np.arange(span)[None, :]].astype(np.float64)
@@ -1340,15 +1357,17 @@ class _TemplateScan:
         h = h / (np.linalg.norm(h) + 1e-20)
         main_h = self.slots[0][2]
         like_main = float(np.max(np.abs(np.correlate(np.pad(main_h, A), h, "valid"))))
-        onsets = starts + self.b0 + on_col
-        # (the fold has already shown where the click lies: the examples found
-        # in noise only have to agree loosely)
-        phase = self._learn_phase(onsets.tolist(), max_iqr=0.15)
+        # the second click's place: the median delay of the aligned examples
+        # over the local period; it must lie within the bins that rose (in
+        # noise single examples scatter, the average does not)
+        phase = float(np.median((starts + self.b0 + on_col - st_k) / loc_k))
+        consistent = fr[kb - 2] <= phase <= fr[kb + 1] if kb + 1 <= nb else False
         self.fold_info.update(agree=agree, like_main=like_main, ring_hz=f2, sharp=sharp,
                               phase=phase, kb=kb)
-        if agree < 0.6 or like_main > 0.95 or phase is None or sharp < 12.0:
+        if agree < 0.6 or like_main > 0.95 or not consistent or sharp < 5.0:
             return False
         self.phase = phase
+        self.folded = True
         self._install(self.slots[1], h)
         return True
 
@@ -1550,19 +1569,41 @@ class _TemplateScan:
         """Second clicks where the cycle puts them (bounded search, lower threshold).
 
         For each main click of the chunk, the second click is expected
-        ``phase`` x the period before it later; within +-(1 ms + 3 % of that
-        delay) the envelope's largest peak counts at ``expect_threshold``
+        ``phase`` x the local period later (the median of the 9 nearest
+        intervals between main clicks, leaving out those under 0.75 of their
+        upper quartile, which a second click split); within +-(1 ms + 3 % of
+        that delay) the envelope's largest peak counts at ``expect_threshold``
         times the noise level (the search is a few samples wide, so far fewer
-        noise peaks compete than in the free scan).
+        noise peaks compete than in the free scan).  The main clicks are those
+        like the main template; when the second template came from folding
+        (the clicks are deep in noise, where a click's likeness to the
+        template is uncertain), every accepted click but those that follow
+        their click at the phase and are followed by the next at the rest of
+        the period.
         """
         out: set[int] = set()
         r1, r2 = round(0.002 * self.fs_d), round(0.004 * self.fs_d)
-        mains = self._mains(base - round(0.6 * self.fs_d), base + n_out)
-        if mains.size < 2:
+        if self.folded:
+            ons = np.array(self.onsets[bisect.bisect_left(self.onsets, base - round(self.fs_d)):
+                                       bisect.bisect_left(self.onsets, base + n_out)],
+                           dtype=np.int64)
+        else:
+            ons = self._mains(base - round(self.fs_d), base + n_out)
+        if ons.size < 3:
             return out
-        period = np.diff(mains)
-        m0 = mains[1:]
-        ok = (period > 0) & (period <= 0.5 * self.fs_d)
+        gaps = np.diff(ons).astype(np.float64)
+        win9 = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, 4, mode="edge"), 9)
+        uq = np.percentile(win9, 75, axis=1)
+        whole = np.where(win9 >= 0.75 * uq[:, None], win9, np.nan)
+        period = np.nanmedian(whole, axis=1)  # around each gap (the upper quartile is kept)
+        m0 = ons[1:]  # the click after each gap
+        ok = period <= 0.5 * self.fs_d
+        if self.folded:
+            # not itself a second click: one that follows its click at the
+            # phase and is followed by the next at the rest of the period
+            after = np.append(gaps[1:] / period[1:], np.nan)
+            ok &= ~((np.abs(gaps / period - self.phase) <= 0.07)
+                    & ~(np.abs(after - (1.0 - self.phase)) > 0.07))
         delay = self.phase * period[ok]
         pred = m0[ok] + np.round(delay).astype(np.int64) - base
         half = np.round(0.001 * self.fs_d + 0.03 * delay).astype(np.int64)
