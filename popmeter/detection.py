@@ -370,6 +370,11 @@ class ClickDetector:
         self._nfft_ring = int(2 ** math.ceil(math.log2(self._tail)))
         self._tapers: dict[int, np.ndarray] = {}
         self._nfft_short = int(2 ** math.ceil(math.log2(1.5 * 0.006 * fs)))
+        # the complex demodulation phasors of the coarse onset (_measure), one
+        # row per STFT bin, over the onset search region and one average's length
+        n_dem = self._n_fft * self._q + 3 * self.hop + self._bp_len
+        self._demod = np.exp((-2j * math.pi / fs) * self._bin_hz[:, None]
+                             * np.arange(n_dem)[None, :]).astype(np.complex64)
 
         self._frame_span = self._n_fft * self._q
         self.max_latency_s = (self._refr * self.hop + self._frame_span + 3 * self.hop
@@ -769,7 +774,6 @@ class ClickDetector:
     def _measure(self, cands: list[_Candidate]) -> list[Click]:
         """Onset, features and the click-or-not decision of candidates, in one batch."""
         fs = self.sample_rate_hz
-        k = len(cands)
         frames = np.array([c.frame for c in cands], dtype=np.int64)
         # one high-passed window per candidate, wide enough for every step:
         # warm-up | pre-onset noise | search region | ring tail
@@ -779,28 +783,25 @@ class ClickDetector:
         w0 = frames * self.hop - lead
         y = self._window(w0, length, high_passed=True)
         s0 = lead
-        rows = np.arange(k)[:, None]
         # coarse: the peak of the energy of the band where the candidate rang
         # within the frame holding the rise (complex demodulation at the bin's
         # frequency, 1 ms moving average: a +-500 Hz band); in noise that band
         # holds far more of the click than the broadband signal, whose own
         # peak may be noise
-        fc = self._bin_hz[np.array([c.band for c in cands], dtype=np.int64)]
         nav = self._bp_len
         seg = y[:, s0 - nav // 2:s0 + search + nav - nav // 2]
-        ph = np.exp((-2j * math.pi / fs) * fc[:, None] * np.arange(seg.shape[1])[None, :])
-        cs = np.cumsum(seg * ph.astype(np.complex64), axis=1)
+        cs = np.cumsum(seg * self._demod[[c.band for c in cands]], axis=1)
         band_e = np.abs(cs[:, nav:nav + search] - cs[:, :search])
         pk = s0 + np.argmax(band_e, axis=1)
         # fine: AIC change point (Maeda 1985) on the broadband y[pk - pre, pk + post)
-        j = _aic_split(y[rows, (pk - self._pre)[:, None]
-                         + np.arange(self._pre + self._post)[None, :]])
+        j = _aic_split(_rows(y, pk - self._pre, self._pre + self._post))
         on_local = pk - self._pre + j  # index in y rows of the onset
         onsets = w0 + on_local
         feats = self._features(y, on_local, onsets)
+        feats = {key: val.tolist() if isinstance(val, np.ndarray) else val
+                 for key, val in feats.items()}
         clicks: list[Click] = []
-        for i, c in enumerate(cands):
-            onset = int(onsets[i])
+        for i, (c, onset) in enumerate(zip(cands, onsets.tolist())):
             f = {key: val[i] for key, val in feats.items()}
             if onset - self._last_onset < self._post:
                 continue  # the same click found twice
@@ -841,14 +842,13 @@ class ClickDetector:
         """Per-click features from the high-passed rows ``y`` (onset at column ``on``)."""
         fs = self.sample_rate_hz
         k = y.shape[0]
-        rows = np.arange(k)[:, None]
         m = self._tail
         gap = int(0.0005 * fs)
         # level: peak of the raw signal within 5 ms of the onset
         raw = self._window(onsets, int(0.005 * fs))
         level = 20 * np.log10(np.maximum(np.max(np.abs(raw), axis=1), 1e-10))
-        tail = y[rows, on[:, None] + np.arange(m)[None, :]]
-        pre = y[rows, (on - gap - m)[:, None] + np.arange(m)[None, :]]
+        tail = _rows(y, on, m)
+        pre = _rows(y, on - gap - m, m)
         taper = self._taper(m)
         spec = sp_fft.rfft(tail * taper, n=self._nfft_ring, axis=1)
         power = spec.real ** 2 + spec.imag ** 2
@@ -918,7 +918,6 @@ class ClickDetector:
         if have.any():
             sel_rows = np.nonzero(have)[0]
             w = (-2j * math.pi * ring[sel_rows] / fs)[:, None]
-            rs = sel_rows[:, None]
 
             def block_env(sig: np.ndarray, blk: int) -> np.ndarray:
                 # |mean over each block of sig * exp(-i w n)|: the phase that
@@ -931,7 +930,7 @@ class ClickDetector:
 
             blk = max(1, round(0.0005 * fs))
             nab = 20
-            first = y[rs, on[sel_rows][:, None] + np.arange(nab * blk)[None, :]]
+            first = _rows(y[sel_rows], on[sel_rows], nab * blk)
             env = block_env(first, blk)
             attack = np.ones(k)
             attack[sel_rows] = (np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1)
@@ -940,8 +939,7 @@ class ClickDetector:
             nb = m // blk2
             env_t = block_env(tail[sel_rows], blk2)
             npb = self._pre // blk2
-            pre_d = y[rs, (on[sel_rows] - gap - npb * blk2)[:, None]
-                      + np.arange(npb * blk2)[None, :]]
+            pre_d = _rows(y[sel_rows], on[sel_rows] - gap - npb * blk2, npb * blk2)
             env_p = block_env(pre_d, blk2)
             env_db = 20 * np.log10(env_t + 1e-12)
             floor_db = 10 * np.log10(np.mean(env_p ** 2, axis=1) + 1e-24) + 6.0
@@ -1221,11 +1219,11 @@ class _TemplateScan:
         if key is None or key != self._spec_key:
             self._spec = sp_fft.rfft(seg, n=self.nfft) * self.mask
             self._spec_key = key
-        r = self._spec * hc
         full = np.zeros(self.nfft, dtype=np.complex64)
-        full[:r.size] = 2.0 * r
+        r = np.multiply(self._spec, hc, out=full[:self._spec.size])
+        r *= 2.0
         full[0] *= 0.5
-        return np.abs(sp_fft.ifft(full)[:self.C + self.E + self.E2])
+        return np.abs(sp_fft.ifft(full, overwrite_x=True)[:self.C + self.E + self.E2])
 
     def _bin_medians(self, env: np.ndarray) -> np.ndarray:
         """Median of env per 10 ms bin (the upper median: an order statistic)."""
@@ -1274,7 +1272,7 @@ class _TemplateScan:
         s0 = a - self.E - self.P  # decimated index of seg[0]
         n_out = self.C + self.E + self.E2
         m = n_out + self.L - 1
-        seg = np.zeros(m, dtype=np.float32)
+        seg = np.zeros(self.nfft, dtype=np.float32)  # (zero-padded to the FFT length here)
         lo, hi = max(s0, self.b0), min(s0 + m, self.b0 + self.buf.size)
         if hi > lo:
             seg[lo - s0:hi - s0] = self.buf[lo - self.b0:hi - self.b0]
@@ -1284,16 +1282,10 @@ class _TemplateScan:
         i1 = bisect.bisect_left(self.onsets, base + n_out + self.E2)
         on = np.array(self.onsets[i0:i1], dtype=np.int64) - base
         r_near = round(0.010 * self.fs_d)  # within 10 ms of an accepted click
-        edges = np.zeros(n_out + 1, dtype=np.int64)
-        np.add.at(edges, np.clip(on - r_near, 0, n_out), 1)
-        np.add.at(edges, np.clip(on + r_near + 1, 0, n_out), -1)
-        near = np.cumsum(edges[:-1]) > 0
+        near = _cover(on - r_near, on + r_near + 1, n_out)
         # where accepted clicks (and their rings) fill the envelope: not used as
         # the local level before a point (a second click follows its main one)
-        edges[:] = 0
-        np.add.at(edges, np.clip(on - self.L, 0, n_out), 1)
-        np.add.at(edges, np.clip(on + self.E2 + self.E, 0, n_out), -1)
-        busy = np.cumsum(edges[:-1]) > 0
+        busy = _cover(on - self.L, on + self.E2 + self.E, n_out)
         # noise level: the envelope's median per 10 ms bin; the floor is the
         # lower decile of those medians within +-0.5 s (robust to clicks
         # covering up to 90 % of the time), divided by its value for noise
@@ -1307,7 +1299,7 @@ class _TemplateScan:
         g = round(0.010 * self.fs_d)
         nb = n_out // g
         bm = self._bin_medians(env_s)
-        floor = float(np.percentile(bm, 10)) / self.slots[si][4]  # one value per chunk
+        floor = float(_percentile(bm, 10)) / self.slots[si][4]  # one value per chunk
         bm_local = np.where(busy[:nb * g].reshape(nb, g).any(axis=1), 0.0, bm)
         pre = np.concatenate([np.full(4, bm_local[0] if nb else 0.0), bm_local])
         p0, p1, p2 = pre[0:nb], pre[1:nb + 1], pre[2:nb + 2]
@@ -1319,9 +1311,10 @@ class _TemplateScan:
         score = env / np.maximum(lvl, 1e-30)
         r1, r2 = round(0.005 * self.fs_d), round(0.012 * self.fs_d)
         l1, l2 = self.L + round(0.004 * self.fs_d), self.L + round(0.001 * self.fs_d)
-        idx = np.arange(self.E, min(self.E + self.C, n_out - 1))
-        c = idx[(score[idx] >= self.threshold) & (env[idx] >= env[idx - 1])
-                & (env[idx] > env[idx + 1]) & ~near[idx]]
+        i0, i1 = self.E, min(self.E + self.C, n_out - 1)
+        mid = env[i0:i1]
+        c = np.flatnonzero((score[i0:i1] >= self.threshold) & (mid >= env[i0 - 1:i1 - 1])
+                           & (mid > env[i0 + 1:i1 + 1]) & ~near[i0:i1]) + i0
         epad = np.concatenate([env, np.zeros(r2 + 1)])
         before = epad[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)
         after = epad[c[:, None] + np.arange(1, r2 + 1)[None, :]].max(axis=1)
@@ -1403,7 +1396,7 @@ class _TemplateScan:
                                                              * grid[None, :])
                               ).astype(np.complex64))
         grid, basis = slot[5]
-        tails = self.buf[st[ok][:, None] + np.arange(m)[None, :]]
+        tails = np.lib.stride_tricks.sliding_window_view(self.buf, m)[st[ok]]
         db = 20 * np.log10(np.abs(tails @ basis) + 1e-30)
         k = np.argmax(db, axis=1)
         for row, (j, kk) in enumerate(zip(ok.tolist(), k.tolist())):
@@ -1415,6 +1408,39 @@ class _TemplateScan:
                     f += 0.5 * (al - ga) / den * float(grid[1] - grid[0])
             out[j] = f
         return out
+
+
+def _rows(x: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
+    """Row i of the result is x[i, starts[i]:starts[i] + length] (a copy)."""
+    view = np.lib.stride_tricks.sliding_window_view(x, length, axis=1)
+    return view[np.arange(x.shape[0]), starts]
+
+
+def _cover(starts: np.ndarray, ends: np.ndarray, n: int) -> np.ndarray:
+    """Mask of length n, True within the intervals [start, end) (clipped to 0..n)."""
+    mask = np.zeros(n, dtype=bool)
+    for a, b in zip(np.clip(starts, 0, n).tolist(), np.clip(ends, 0, n).tolist()):
+        mask[a:b] = True
+    return mask
+
+
+def _percentile(x: np.ndarray, q: float) -> np.floating:
+    """``np.percentile(x, q)`` of a 1-D array, the same value, without its overhead.
+
+    Linear interpolation between the two order statistics around
+    ``(n - 1) q / 100`` (Hyndman & Fan 1996, definition 7, numpy's default),
+    computed as numpy does (partition, then its two-sided lerp in the array's
+    dtype); about 15 times faster on the 100 values of a scan chunk.
+    """
+    n = x.size
+    vi = (n - 1) * (q / 100)
+    lo = min(max(math.floor(vi), 0), n - 1)
+    hi = min(lo + 1, n - 1)
+    t = vi - lo
+    part = np.partition(x, (lo, hi) if hi != lo else lo)
+    a, b = part[lo], part[hi]
+    d = b - a
+    return b - d * (1 - t) if t >= 0.5 else a + d * t
 
 
 def _aic_split(aw: np.ndarray) -> np.ndarray:
