@@ -593,9 +593,11 @@ class ClickDetector:
                 # window side-lobe of a far stronger bin (in near-silence the
                 # floor is so low that leakage would pass)
                 floor = np.maximum(lev.max(axis=1, keepdims=True) - _LEAK_DB, _ABS_FLOOR_DB)
-                ok = (r >= self.min_rise_db) & (over >= self._gate) & (lev >= floor)
-                zz = np.where(ok, over, np.float32(0.0))
-                ov[t - f0:seg_end - f0] = zz
+                ok = r >= self.min_rise_db
+                ok &= over >= self._gate
+                ok &= lev >= floor
+                zz = ov[t - f0:seg_end - f0]  # (zero where a gate fails)
+                np.copyto(zz, over, where=ok)
                 best = np.argmax(zz, axis=1)
                 z[t - f0:seg_end - f0] = zz[np.arange(zz.shape[0]), best]
                 zb[t - f0:seg_end - f0] = best
@@ -802,9 +804,9 @@ class ClickDetector:
                  for key, val in feats.items()}
         clicks: list[Click] = []
         for i, (c, onset) in enumerate(zip(cands, onsets.tolist())):
-            f = {key: val[i] for key, val in feats.items()}
             if onset - self._last_onset < self._post:
                 continue  # the same click found twice
+            f = {key: val[i] for key, val in feats.items()}
             if self._debug is not None:
                 self._debug.append({"time_s": onset / fs, "strong": c.strong, "z": c.z, **f})
             ring = f["ring_hz"]
@@ -930,7 +932,7 @@ class ClickDetector:
 
             blk = max(1, round(0.0005 * fs))
             nab = 20
-            first = _rows(y[sel_rows], on[sel_rows], nab * blk)
+            first = _rows(y, on[sel_rows], nab * blk, sel_rows)
             env = block_env(first, blk)
             attack = np.ones(k)
             attack[sel_rows] = (np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1)
@@ -939,7 +941,7 @@ class ClickDetector:
             nb = m // blk2
             env_t = block_env(tail[sel_rows], blk2)
             npb = self._pre // blk2
-            pre_d = _rows(y[sel_rows], on[sel_rows] - gap - npb * blk2, npb * blk2)
+            pre_d = _rows(y, on[sel_rows] - gap - npb * blk2, npb * blk2, sel_rows)
             env_p = block_env(pre_d, blk2)
             env_db = 20 * np.log10(env_t + 1e-12)
             floor_db = 10 * np.log10(np.mean(env_p ** 2, axis=1) + 1e-24) + 6.0
@@ -1410,10 +1412,14 @@ class _TemplateScan:
         return out
 
 
-def _rows(x: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
-    """Row i of the result is x[i, starts[i]:starts[i] + length] (a copy)."""
+def _rows(x: np.ndarray, starts: np.ndarray, length: int,
+          rows: np.ndarray | None = None) -> np.ndarray:
+    """Row i of the result is x[rows[i], starts[i]:starts[i] + length] (a copy).
+
+    ``rows`` defaults to every row of x in order.
+    """
     view = np.lib.stride_tricks.sliding_window_view(x, length, axis=1)
-    return view[np.arange(x.shape[0]), starts]
+    return view[np.arange(x.shape[0]) if rows is None else rows, starts]
 
 
 def _cover(starts: np.ndarray, ends: np.ndarray, n: int) -> np.ndarray:
