@@ -677,6 +677,7 @@ class ClickDetector:
             near_strong = (np.maximum(left, right) >= thr) | (zh >= thr)
         else:
             strong = near_strong = np.zeros(0, dtype=bool)
+        typ_max, typ_for = None, None  # per frame, the largest value over the typical bins
         for t, is_strong, busy in zip(hits.tolist(), strong.tolist(), near_strong.tolist()):
             # learning checkpoint: the bins where the strong candidates before
             # it rang; fixed frame numbers, so the same whatever the block size
@@ -696,12 +697,13 @@ class ClickDetector:
             a = max(z0, t - r)
             b = min(self._frames, t + r + 1)
             typ = self._typ_current
-            win = over[a - z0:b - z0][:, typ]
-            wmax = win.max(axis=1)
+            if typ_for is not typ:  # (once per learning checkpoint, for all frames kept)
+                typ_max, typ_for = over[:, typ].max(axis=1), typ
+            wmax = typ_max[a - z0:b - z0]
             zt2 = wmax[t - a]
             if zt2 < weak or np.any(wmax[:t - a] >= zt2) or np.any(wmax[t - a + 1:] > zt2):
                 continue
-            band = int(typ[int(np.argmax(win[t - a]))])
+            band = int(typ[int(np.argmax(over[t - z0, typ]))])
             rng = (float(self._bin_hz[typ[0]] - self._df), float(self._bin_hz[typ[-1]] + self._df))
             self._pending.append(_Candidate(t, float(zt2), band, False, rng))
         self._decided = upto
