@@ -1287,9 +1287,6 @@ class _TemplateScan:
         on = np.array(self.onsets[i0:i1], dtype=np.int64) - base
         r_near = round(0.010 * self.fs_d)  # within 10 ms of an accepted click
         near = _cover(on - r_near, on + r_near + 1, n_out)
-        # where accepted clicks (and their rings) fill the envelope: not used as
-        # the local level before a point (a second click follows its main one)
-        busy = _cover(on - self.L, on + self.E2 + self.E, n_out)
         # noise level: the envelope's median per 10 ms bin; the floor is the
         # lower decile of those medians within +-0.5 s (robust to clicks
         # covering up to 90 % of the time), divided by its value for noise
@@ -1304,7 +1301,14 @@ class _TemplateScan:
         nb = n_out // g
         bm = self._bin_medians(env_s)
         floor = float(_percentile(bm, 10)) / self.slots[si][4]  # one value per chunk
-        bm_local = np.where(busy[:nb * g].reshape(nb, g).any(axis=1), 0.0, bm)
+        # bins where accepted clicks (and their rings) fill the envelope: not
+        # used as the local level before a point (a second click follows its
+        # main one); a bin is busy when [onset - L, onset + E2 + E) reaches it
+        b_lo = np.clip(on - self.L, 0, n_out)
+        b_hi = np.clip(on + self.E2 + self.E, 0, n_out)
+        reach = b_hi > b_lo
+        busy = _cover(b_lo[reach] // g, (b_hi[reach] + g - 1) // g, nb)
+        bm_local = np.where(busy, 0.0, bm)
         pre = np.concatenate([np.full(4, bm_local[0] if nb else 0.0), bm_local])
         p0, p1, p2 = pre[0:nb], pre[1:nb + 1], pre[2:nb + 2]
         prev = p0 + p1 + p2 - np.maximum(np.maximum(p0, p1), p2) - np.minimum(
@@ -1312,13 +1316,14 @@ class _TemplateScan:
         lvl_b = np.maximum(floor, prev) / 1.1774
         lvl = np.full(n_out, lvl_b[-1] if nb else float(np.median(env)) / 1.1774)
         lvl[:nb * g] = np.repeat(lvl_b, g)
-        score = env / np.maximum(lvl, 1e-30)
         r1, r2 = round(0.005 * self.fs_d), round(0.012 * self.fs_d)
         l1, l2 = self.L + round(0.004 * self.fs_d), self.L + round(0.001 * self.fs_d)
         i0, i1 = self.E, min(self.E + self.C, n_out - 1)
         mid = env[i0:i1]
-        c = np.flatnonzero((score[i0:i1] >= self.threshold) & (mid >= env[i0 - 1:i1 - 1])
-                           & (mid > env[i0 + 1:i1 + 1]) & ~near[i0:i1]) + i0
+        c = np.flatnonzero((mid >= env[i0 - 1:i1 - 1]) & (mid > env[i0 + 1:i1 + 1])
+                           & ~near[i0:i1]) + i0
+        # the envelope over its noise level, at the peaks only
+        c = c[env[c] / np.maximum(lvl[c], 1e-30) >= self.threshold]
         epad = np.concatenate([env, np.zeros(r2 + 1)])
         before = epad[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)
         after = epad[c[:, None] + np.arange(1, r2 + 1)[None, :]].max(axis=1)
@@ -1340,7 +1345,8 @@ class _TemplateScan:
             peak = float(np.max(np.abs(raw))) if raw.size else 0.0
             self.clicks.append(Click(time_s=onset_in / self.fs_in, sample=onset_in,
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
-                                     strength=round(20 * math.log10(float(score[i])), 3),
+                                     strength=round(20 * math.log10(
+                                         float(env[i] / np.maximum(lvl[i], 1e-30))), 3),
                                      ring_hz=ring, decay_s=None))
 
     def _expected(self, base: int, n_out: int, env: np.ndarray, score: np.ndarray,
@@ -1420,7 +1426,10 @@ def _rows(x: np.ndarray, starts: np.ndarray, length: int,
 
     ``rows`` defaults to every row of x in order.
     """
-    view = np.lib.stride_tricks.sliding_window_view(x, length, axis=1)
+    # (the strided view of every window, as sliding_window_view makes it, without its checks)
+    view = np.lib.stride_tricks.as_strided(
+        x, shape=(x.shape[0], x.shape[1] - length + 1, length),
+        strides=(x.strides[0], x.strides[1], x.strides[1]), writeable=False)
     return view[np.arange(x.shape[0]) if rows is None else rows, starts]
 
 
