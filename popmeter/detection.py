@@ -1956,6 +1956,25 @@ def finish_detection(detector: ClickDetector, clicks: list[Click], *,
                    duration_s=detector.samples_seen / detector.sample_rate_hz)
 
 
+def _joined(blocks: Iterable[np.ndarray], min_size: int) -> Iterable[np.ndarray]:
+    """The blocks, consecutive ones joined until at least ``min_size`` samples.
+
+    The detector gives the same clicks whatever the block size; it spends a
+    fixed time per block, so a file's small reading blocks (65536 samples)
+    are fed four at a time (2^18 float32 samples: 1 MB, 5.5 s at 48 kHz).
+    """
+    parts: list[np.ndarray] = []
+    size = 0
+    for b in blocks:
+        parts.append(np.asarray(b).reshape(-1))
+        size += parts[-1].size
+        if size >= min_size:
+            yield parts[0] if len(parts) == 1 else np.concatenate(parts)
+            parts, size = [], 0
+    if parts:
+        yield parts[0] if len(parts) == 1 else np.concatenate(parts)
+
+
 def detect_clicks_in_blocks(
     blocks: Iterable[np.ndarray],
     sample_rate_hz: float,
@@ -1985,7 +2004,7 @@ def detect_clicks_in_blocks(
     """
     det = ClickDetector(sample_rate_hz, band_hz=band_hz, **detector_options)
     clicks: list[Click] = []
-    for b in blocks:
+    for b in _joined(blocks, 2 ** 18):
         clicks.extend(det.process(b))
     clicks.extend(det.flush())
     return _result(clicks, det.rejected, det.rejected_times_s, det,
