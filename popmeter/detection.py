@@ -545,10 +545,15 @@ class ClickDetector:
             off = f0 * h - self._d0
             seg = self._d[off:off + (avail - f0 - 1) * h + n]
             frames = np.lib.stride_tricks.sliding_window_view(seg, n)[::h]
-            spec = sp_fft.rfft(frames * self._win, axis=1)
-            power = spec.real ** 2 + spec.imag ** 2
-            levels = 10.0 * np.log10(power[:, self._bin_lo:self._bin_hi] * np.float32(self._scale)
-                                     + np.float32(1e-13))
+            spec = sp_fft.rfft(frames * self._win, axis=1, overwrite_x=True)
+            # dB of the watched bins' power, computed in place
+            watched = spec[:, self._bin_lo:self._bin_hi]
+            levels = watched.real ** 2
+            levels += watched.imag ** 2
+            levels *= np.float32(self._scale)
+            levels += np.float32(1e-13)
+            np.log10(levels, out=levels)
+            levels *= 10.0
             allv = np.vstack([self._L_tail, levels])
             lag = self._lag
             # row i of allv is frame f0 - (lag + 1) + i, so the reference of
@@ -1325,12 +1330,12 @@ class _TemplateScan:
         # the envelope over its noise level, at the peaks only
         c = c[env[c] / np.maximum(lvl[c], 1e-30) >= self.threshold]
         epad = np.concatenate([env, np.zeros(r2 + 1)])
-        before = epad[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)
-        after = epad[c[:, None] + np.arange(1, r2 + 1)[None, :]].max(axis=1)
-        ref = epad[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)
-        good = ((env[c] > before) & (env[c] >= after) & (env[c] >= 2.0 * ref)
-                & (base + c - l1 >= 0))  # the stream's start is no reference
-        found = set(c[good].tolist())
+        # (each test on the peaks the ones before left standing)
+        c = c[base + c - l1 >= 0]  # the stream's start is no reference
+        c = c[env[c] > epad[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)]
+        c = c[env[c] >= epad[c[:, None] + np.arange(1, r2 + 1)[None, :]].max(axis=1)]
+        c = c[env[c] >= 2.0 * epad[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)]
+        found = set(c.tolist())
         if si == 1 and self.phase is not None:
             found |= self._expected(base, n_out, env, env * (1.1774 / floor), near)
         order = sorted(found)
