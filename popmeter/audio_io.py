@@ -786,6 +786,11 @@ class _Runs:
         n = len(mask)
         if n == 0:
             return
+        if (self.open_start is None and not mask[-1]
+                and np.count_nonzero(mask) < self.min_len):
+            # the usual block: no run long enough to count, none open at its end
+            self.pos += n
+            return
         carry = 1 if self.open_start is not None else 0
         d = np.diff(np.concatenate(([carry], mask.astype(np.int8), [0])))
         starts = np.flatnonzero(d == 1) + self.pos

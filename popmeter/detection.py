@@ -373,6 +373,11 @@ class ClickDetector:
         self._nfft_ring = int(2 ** math.ceil(math.log2(self._tail)))
         self._tapers: dict[int, np.ndarray] = {}
         self._nfft_short = int(2 ** math.ceil(math.log2(1.5 * 0.006 * fs)))
+        # the complex demodulation phasors of the coarse onset (_measure), one
+        # row per STFT bin, over the onset search region and one average's length
+        n_dem = self._n_fft * self._q + 3 * self.hop + self._bp_len
+        self._demod = np.exp((-2j * math.pi / fs) * self._bin_hz[:, None]
+                             * np.arange(n_dem)[None, :]).astype(np.complex64)
 
         self._frame_span = self._n_fft * self._q
         self.max_latency_s = (self._refr * self.hop + self._frame_span + 3 * self.hop
@@ -543,10 +548,15 @@ class ClickDetector:
             off = f0 * h - self._d0
             seg = self._d[off:off + (avail - f0 - 1) * h + n]
             frames = np.lib.stride_tricks.sliding_window_view(seg, n)[::h]
-            spec = sp_fft.rfft(frames * self._win, axis=1)
-            power = spec.real ** 2 + spec.imag ** 2
-            levels = 10.0 * np.log10(power[:, self._bin_lo:self._bin_hi] * np.float32(self._scale)
-                                     + np.float32(1e-13))
+            spec = sp_fft.rfft(frames * self._win, axis=1, overwrite_x=True)
+            # dB of the watched bins' power, computed in place
+            watched = spec[:, self._bin_lo:self._bin_hi]
+            levels = watched.real ** 2
+            levels += watched.imag ** 2
+            levels *= np.float32(self._scale)
+            levels += np.float32(1e-13)
+            np.log10(levels, out=levels)
+            levels *= 10.0
             allv = np.vstack([self._L_tail, levels])
             lag = self._lag
             # row i of allv is frame f0 - (lag + 1) + i, so the reference of
@@ -591,9 +601,11 @@ class ClickDetector:
                 # window side-lobe of a far stronger bin (in near-silence the
                 # floor is so low that leakage would pass)
                 floor = np.maximum(lev.max(axis=1, keepdims=True) - _LEAK_DB, _ABS_FLOOR_DB)
-                ok = (r >= self.min_rise_db) & (over >= self._gate) & (lev >= floor)
-                zz = np.where(ok, over, np.float32(0.0))
-                ov[t - f0:seg_end - f0] = zz
+                ok = r >= self.min_rise_db
+                ok &= over >= self._gate
+                ok &= lev >= floor
+                zz = ov[t - f0:seg_end - f0]  # (zero where a gate fails)
+                np.copyto(zz, over, where=ok)
                 best = np.argmax(zz, axis=1)
                 z[t - f0:seg_end - f0] = zz[np.arange(zz.shape[0]), best]
                 zb[t - f0:seg_end - f0] = best
@@ -673,6 +685,7 @@ class ClickDetector:
             near_strong = (np.maximum(left, right) >= thr) | (zh >= thr)
         else:
             strong = near_strong = np.zeros(0, dtype=bool)
+        typ_max, typ_for = None, None  # per frame, the largest value over the typical bins
         for t, is_strong, busy in zip(hits.tolist(), strong.tolist(), near_strong.tolist()):
             # learning checkpoint: the bins where the strong candidates before
             # it rang; fixed frame numbers, so the same whatever the block size
@@ -692,12 +705,13 @@ class ClickDetector:
             a = max(z0, t - r)
             b = min(self._frames, t + r + 1)
             typ = self._typ_current
-            win = over[a - z0:b - z0][:, typ]
-            wmax = win.max(axis=1)
+            if typ_for is not typ:  # (once per learning checkpoint, for all frames kept)
+                typ_max, typ_for = over[:, typ].max(axis=1), typ
+            wmax = typ_max[a - z0:b - z0]
             zt2 = wmax[t - a]
             if zt2 < weak or np.any(wmax[:t - a] >= zt2) or np.any(wmax[t - a + 1:] > zt2):
                 continue
-            band = int(typ[int(np.argmax(win[t - a]))])
+            band = int(typ[int(np.argmax(over[t - z0, typ]))])
             rng = (float(self._bin_hz[typ[0]] - self._df), float(self._bin_hz[typ[-1]] + self._df))
             self._pending.append(_Candidate(t, float(zt2), band, False, rng))
         self._decided = upto
@@ -772,7 +786,6 @@ class ClickDetector:
     def _measure(self, cands: list[_Candidate]) -> list[Click]:
         """Onset, features and the click-or-not decision of candidates, in one batch."""
         fs = self.sample_rate_hz
-        k = len(cands)
         frames = np.array([c.frame for c in cands], dtype=np.int64)
         # one high-passed window per candidate, wide enough for every step:
         # warm-up | pre-onset noise | search region | ring tail
@@ -782,31 +795,28 @@ class ClickDetector:
         w0 = frames * self.hop - lead
         y = self._window(w0, length, high_passed=True)
         s0 = lead
-        rows = np.arange(k)[:, None]
         # coarse: the peak of the energy of the band where the candidate rang
         # within the frame holding the rise (complex demodulation at the bin's
         # frequency, 1 ms moving average: a +-500 Hz band); in noise that band
         # holds far more of the click than the broadband signal, whose own
         # peak may be noise
-        fc = self._bin_hz[np.array([c.band for c in cands], dtype=np.int64)]
         nav = self._bp_len
         seg = y[:, s0 - nav // 2:s0 + search + nav - nav // 2]
-        ph = np.exp((-2j * math.pi / fs) * fc[:, None] * np.arange(seg.shape[1])[None, :])
-        cs = np.cumsum(seg * ph.astype(np.complex64), axis=1)
+        cs = np.cumsum(seg * self._demod[[c.band for c in cands]], axis=1)
         band_e = np.abs(cs[:, nav:nav + search] - cs[:, :search])
         pk = s0 + np.argmax(band_e, axis=1)
         # fine: AIC change point (Maeda 1985) on the broadband y[pk - pre, pk + post)
-        j = _aic_split(y[rows, (pk - self._pre)[:, None]
-                         + np.arange(self._pre + self._post)[None, :]])
+        j = _aic_split(_rows(y, pk - self._pre, self._pre + self._post))
         on_local = pk - self._pre + j  # index in y rows of the onset
         onsets = w0 + on_local
         feats = self._features(y, on_local, onsets)
+        feats = {key: val.tolist() if isinstance(val, np.ndarray) else val
+                 for key, val in feats.items()}
         clicks: list[Click] = []
-        for i, c in enumerate(cands):
-            onset = int(onsets[i])
-            f = {key: val[i] for key, val in feats.items()}
+        for i, (c, onset) in enumerate(zip(cands, onsets.tolist())):
             if onset - self._last_onset < self._post:
                 continue  # the same click found twice
+            f = {key: val[i] for key, val in feats.items()}
             if self._debug is not None:
                 self._debug.append({"time_s": onset / fs, "strong": c.strong, "z": c.z, **f})
             ring = f["ring_hz"]
@@ -844,14 +854,13 @@ class ClickDetector:
         """Per-click features from the high-passed rows ``y`` (onset at column ``on``)."""
         fs = self.sample_rate_hz
         k = y.shape[0]
-        rows = np.arange(k)[:, None]
         m = self._tail
         gap = int(0.0005 * fs)
         # level: peak of the raw signal within 5 ms of the onset
         raw = self._window(onsets, int(0.005 * fs))
         level = 20 * np.log10(np.maximum(np.max(np.abs(raw), axis=1), 1e-10))
-        tail = y[rows, on[:, None] + np.arange(m)[None, :]]
-        pre = y[rows, (on - gap - m)[:, None] + np.arange(m)[None, :]]
+        tail = _rows(y, on, m)
+        pre = _rows(y, on - gap - m, m)
         taper = self._taper(m)
         spec = sp_fft.rfft(tail * taper, n=self._nfft_ring, axis=1)
         power = spec.real ** 2 + spec.imag ** 2
@@ -921,7 +930,6 @@ class ClickDetector:
         if have.any():
             sel_rows = np.nonzero(have)[0]
             w = (-2j * math.pi * ring[sel_rows] / fs)[:, None]
-            rs = sel_rows[:, None]
 
             def block_env(sig: np.ndarray, blk: int) -> np.ndarray:
                 # |mean over each block of sig * exp(-i w n)|: the phase that
@@ -934,7 +942,7 @@ class ClickDetector:
 
             blk = max(1, round(0.0005 * fs))
             nab = 20
-            first = y[rs, on[sel_rows][:, None] + np.arange(nab * blk)[None, :]]
+            first = _rows(y, on[sel_rows], nab * blk, sel_rows)
             env = block_env(first, blk)
             attack = np.ones(k)
             attack[sel_rows] = (np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1)
@@ -943,8 +951,7 @@ class ClickDetector:
             nb = m // blk2
             env_t = block_env(tail[sel_rows], blk2)
             npb = self._pre // blk2
-            pre_d = y[rs, (on[sel_rows] - gap - npb * blk2)[:, None]
-                      + np.arange(npb * blk2)[None, :]]
+            pre_d = _rows(y, on[sel_rows] - gap - npb * blk2, npb * blk2, sel_rows)
             env_p = block_env(pre_d, blk2)
             env_db = 20 * np.log10(env_t + 1e-12)
             floor_db = 10 * np.log10(np.mean(env_p ** 2, axis=1) + 1e-24) + 6.0
@@ -1439,11 +1446,11 @@ class _TemplateScan:
         if key is None or key != self._spec_key:
             self._spec = sp_fft.rfft(seg, n=self.nfft) * self.mask
             self._spec_key = key
-        r = self._spec * hc
         full = np.zeros(self.nfft, dtype=np.complex64)
-        full[:r.size] = 2.0 * r
+        r = np.multiply(self._spec, hc, out=full[:self._spec.size])
+        r *= 2.0
         full[0] *= 0.5
-        return np.abs(sp_fft.ifft(full)[:self.C + self.E + self.E2])
+        return np.abs(sp_fft.ifft(full, overwrite_x=True)[:self.C + self.E + self.E2])
 
     def _bin_medians(self, env: np.ndarray) -> np.ndarray:
         """Median of env per 10 ms bin (the upper median: an order statistic)."""
@@ -1492,7 +1499,7 @@ class _TemplateScan:
         s0 = a - self.E - self.P  # decimated index of seg[0]
         n_out = self.C + self.E + self.E2
         m = n_out + self.L - 1
-        seg = np.zeros(m, dtype=np.float32)
+        seg = np.zeros(self.nfft, dtype=np.float32)  # (zero-padded to the FFT length here)
         lo, hi = max(s0, self.b0), min(s0 + m, self.b0 + self.buf.size)
         if hi > lo:
             seg[lo - s0:hi - s0] = self.buf[lo - self.b0:hi - self.b0]
@@ -1502,16 +1509,7 @@ class _TemplateScan:
         i1 = bisect.bisect_left(self.onsets, base + n_out + self.E2)
         on = np.array(self.onsets[i0:i1], dtype=np.int64) - base
         r_near = round(0.010 * self.fs_d)  # within 10 ms of an accepted click
-        edges = np.zeros(n_out + 1, dtype=np.int64)
-        np.add.at(edges, np.clip(on - r_near, 0, n_out), 1)
-        np.add.at(edges, np.clip(on + r_near + 1, 0, n_out), -1)
-        near = np.cumsum(edges[:-1]) > 0
-        # where accepted clicks (and their rings) fill the envelope: not used as
-        # the local level before a point (a second click follows its main one)
-        edges[:] = 0
-        np.add.at(edges, np.clip(on - self.L, 0, n_out), 1)
-        np.add.at(edges, np.clip(on + self.E2 + self.E, 0, n_out), -1)
-        busy = np.cumsum(edges[:-1]) > 0
+        near = _cover(on - r_near, on + r_near + 1, n_out)
         # noise level: the envelope's median per 10 ms bin; the floor is the
         # lower decile of those medians within +-0.5 s (robust to clicks
         # covering up to 90 % of the time), divided by its value for noise
@@ -1525,8 +1523,15 @@ class _TemplateScan:
         g = round(0.010 * self.fs_d)
         nb = n_out // g
         bm = self._bin_medians(env_s)
-        floor = float(np.percentile(bm, 10)) / self.slots[si][4]  # one value per chunk
-        bm_local = np.where(busy[:nb * g].reshape(nb, g).any(axis=1), 0.0, bm)
+        floor = float(_percentile(bm, 10)) / self.slots[si][4]  # one value per chunk
+        # bins where accepted clicks (and their rings) fill the envelope: not
+        # used as the local level before a point (a second click follows its
+        # main one); a bin is busy when [onset - L, onset + E2 + E) reaches it
+        b_lo = np.clip(on - self.L, 0, n_out)
+        b_hi = np.clip(on + self.E2 + self.E, 0, n_out)
+        reach = b_hi > b_lo
+        busy = _cover(b_lo[reach] // g, (b_hi[reach] + g - 1) // g, nb)
+        bm_local = np.where(busy, 0.0, bm)
         pre = np.concatenate([np.full(4, bm_local[0] if nb else 0.0), bm_local])
         p0, p1, p2 = pre[0:nb], pre[1:nb + 1], pre[2:nb + 2]
         prev = p0 + p1 + p2 - np.maximum(np.maximum(p0, p1), p2) - np.minimum(
@@ -1534,19 +1539,21 @@ class _TemplateScan:
         lvl_b = np.maximum(floor, prev) / 1.1774
         lvl = np.full(n_out, lvl_b[-1] if nb else float(np.median(env)) / 1.1774)
         lvl[:nb * g] = np.repeat(lvl_b, g)
-        score = env / np.maximum(lvl, 1e-30)
         r1, r2 = round(0.005 * self.fs_d), round(0.012 * self.fs_d)
         l1, l2 = self.L + round(0.004 * self.fs_d), self.L + round(0.001 * self.fs_d)
-        idx = np.arange(self.E, min(self.E + self.C, n_out - 1))
-        c = idx[(score[idx] >= self.threshold) & (env[idx] >= env[idx - 1])
-                & (env[idx] > env[idx + 1]) & ~near[idx]]
+        i0, i1 = self.E, min(self.E + self.C, n_out - 1)
+        mid = env[i0:i1]
+        c = np.flatnonzero((mid >= env[i0 - 1:i1 - 1]) & (mid > env[i0 + 1:i1 + 1])
+                           & ~near[i0:i1]) + i0
+        # the envelope over its noise level, at the peaks only
+        c = c[env[c] / np.maximum(lvl[c], 1e-30) >= self.threshold]
         epad = np.concatenate([env, np.zeros(r2 + 1)])
-        before = epad[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)
-        after = epad[c[:, None] + np.arange(1, r2 + 1)[None, :]].max(axis=1)
-        ref = epad[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)
-        good = ((env[c] > before) & (env[c] >= after) & (env[c] >= 2.0 * ref)
-                & (base + c - l1 >= 0))  # the stream's start is no reference
-        found = set(c[good].tolist())
+        # (each test on the peaks the ones before left standing)
+        c = c[base + c - l1 >= 0]  # the stream's start is no reference
+        c = c[env[c] > epad[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)]
+        c = c[env[c] >= epad[c[:, None] + np.arange(1, r2 + 1)[None, :]].max(axis=1)]
+        c = c[env[c] >= 2.0 * epad[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)]
+        found = set(c.tolist())
         if si == 1 and self.phase is not None:
             found |= self._expected(base, n_out, env, env * (1.1774 / floor), near)
         order = sorted(found)
@@ -1561,7 +1568,8 @@ class _TemplateScan:
             peak = float(np.max(np.abs(raw))) if raw.size else 0.0
             self.clicks.append(Click(time_s=onset_in / self.fs_in, sample=onset_in,
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
-                                     strength=round(20 * math.log10(float(score[i])), 3),
+                                     strength=round(20 * math.log10(
+                                         float(env[i] / np.maximum(lvl[i], 1e-30))), 3),
                                      ring_hz=ring, decay_s=None))
 
     def _expected(self, base: int, n_out: int, env: np.ndarray, score: np.ndarray,
@@ -1643,7 +1651,7 @@ class _TemplateScan:
                                                              * grid[None, :])
                               ).astype(np.complex64))
         grid, basis = slot[5]
-        tails = self.buf[st[ok][:, None] + np.arange(m)[None, :]]
+        tails = np.lib.stride_tricks.sliding_window_view(self.buf, m)[st[ok]]
         db = 20 * np.log10(np.abs(tails @ basis) + 1e-30)
         k = np.argmax(db, axis=1)
         for row, (j, kk) in enumerate(zip(ok.tolist(), k.tolist())):
@@ -1655,6 +1663,46 @@ class _TemplateScan:
                     f += 0.5 * (al - ga) / den * float(grid[1] - grid[0])
             out[j] = f
         return out
+
+
+def _rows(x: np.ndarray, starts: np.ndarray, length: int,
+          rows: np.ndarray | None = None) -> np.ndarray:
+    """Row i of the result is x[rows[i], starts[i]:starts[i] + length] (a copy).
+
+    ``rows`` defaults to every row of x in order.
+    """
+    # (the strided view of every window, as sliding_window_view makes it, without its checks)
+    view = np.lib.stride_tricks.as_strided(
+        x, shape=(x.shape[0], x.shape[1] - length + 1, length),
+        strides=(x.strides[0], x.strides[1], x.strides[1]), writeable=False)
+    return view[np.arange(x.shape[0]) if rows is None else rows, starts]
+
+
+def _cover(starts: np.ndarray, ends: np.ndarray, n: int) -> np.ndarray:
+    """Mask of length n, True within the intervals [start, end) (clipped to 0..n)."""
+    mask = np.zeros(n, dtype=bool)
+    for a, b in zip(np.clip(starts, 0, n).tolist(), np.clip(ends, 0, n).tolist()):
+        mask[a:b] = True
+    return mask
+
+
+def _percentile(x: np.ndarray, q: float) -> np.floating:
+    """``np.percentile(x, q)`` of a 1-D array, the same value, without its overhead.
+
+    Linear interpolation between the two order statistics around
+    ``(n - 1) q / 100`` (Hyndman & Fan 1996, definition 7, numpy's default),
+    computed as numpy does (partition, then its two-sided lerp in the array's
+    dtype); about 15 times faster on the 100 values of a scan chunk.
+    """
+    n = x.size
+    vi = (n - 1) * (q / 100)
+    lo = min(max(math.floor(vi), 0), n - 1)
+    hi = min(lo + 1, n - 1)
+    t = vi - lo
+    part = np.partition(x, (lo, hi) if hi != lo else lo)
+    a, b = part[lo], part[hi]
+    d = b - a
+    return b - d * (1 - t) if t >= 0.5 else a + d * t
 
 
 def _aic_split(aw: np.ndarray) -> np.ndarray:
@@ -2153,6 +2201,25 @@ def finish_detection(detector: ClickDetector, clicks: list[Click], *,
                    duration_s=detector.samples_seen / detector.sample_rate_hz)
 
 
+def _joined(blocks: Iterable[np.ndarray], min_size: int) -> Iterable[np.ndarray]:
+    """The blocks, consecutive ones joined until at least ``min_size`` samples.
+
+    The detector gives the same clicks whatever the block size; it spends a
+    fixed time per block, so a file's small reading blocks (65536 samples)
+    are fed four at a time (2^18 float32 samples: 1 MB, 5.5 s at 48 kHz).
+    """
+    parts: list[np.ndarray] = []
+    size = 0
+    for b in blocks:
+        parts.append(np.asarray(b).reshape(-1))
+        size += parts[-1].size
+        if size >= min_size:
+            yield parts[0] if len(parts) == 1 else np.concatenate(parts)
+            parts, size = [], 0
+    if parts:
+        yield parts[0] if len(parts) == 1 else np.concatenate(parts)
+
+
 def detect_clicks_in_blocks(
     blocks: Iterable[np.ndarray],
     sample_rate_hz: float,
@@ -2182,7 +2249,7 @@ def detect_clicks_in_blocks(
     """
     det = ClickDetector(sample_rate_hz, band_hz=band_hz, **detector_options)
     clicks: list[Click] = []
-    for b in blocks:
+    for b in _joined(blocks, 2 ** 18):
         clicks.extend(det.process(b))
     clicks.extend(det.flush())
     return _result(clicks, det.rejected, det.rejected_times_s, det,
