@@ -1069,6 +1069,10 @@ class _TemplateScan:
         self.slots: list[list] = [[None, 0.0, None, 0, 1.0, None],
                                   [None, 0.0, None, 0, 1.0, None]]
         self.clicks: list[Click] = []
+        # per click found: how well its template fits it (normalised
+        # correlation, 0-1), to choose between two templates' finds of one click
+        self.click_fit: list[float] = []
+        self.main_found: list[int] = []  # onsets (decimated) the main template found
         self.nfft = sp_fft.next_fast_len(self.C + self.E + self.E2 + self.L, real=True)
         f = np.arange(self.nfft // 2 + 1) * (fs_d / self.nfft)
         self.mask = ((f >= 300.0) & (f <= 0.45 * fs_d)).astype(np.float32)
@@ -1493,6 +1497,8 @@ class _TemplateScan:
         lo = first - self.E - self.C
         if self.onsets and self.onsets[0] < lo:
             del self.onsets[:bisect.bisect_left(self.onsets, lo)]
+        if self.main_found and self.main_found[0] < lo:
+            del self.main_found[:bisect.bisect_left(self.main_found, lo)]
 
     def _scan(self, a: int, si: int) -> None:
         hc = self.slots[si][0]
@@ -1558,6 +1564,13 @@ class _TemplateScan:
             found |= self._expected(base, n_out, env, env * (1.1774 / floor), near)
         order = sorted(found)
         rings = self._rings([base + i - self.b0 for i in order], si)
+        if order:
+            ce = np.concatenate([[0.0], np.cumsum(seg.astype(np.float64) ** 2)])
+            o = np.array(order)
+            fit = env[o] / np.sqrt(np.maximum(ce[o + self.L] - ce[o], 1e-30))
+            self.click_fit.extend(np.minimum(fit, 1.0).tolist())
+            if si == 0:
+                self.main_found.extend((base + o).tolist())
         for i, ring in zip(order, rings):
             al, be, ga = env[i - 1], env[i], env[i + 1]
             den = al - 2 * be + ga
@@ -1592,9 +1605,14 @@ class _TemplateScan:
         out: set[int] = set()
         r1, r2 = round(0.002 * self.fs_d), round(0.004 * self.fs_d)
         if self.folded:
-            ons = np.array(self.onsets[bisect.bisect_left(self.onsets, base - round(self.fs_d)):
-                                       bisect.bisect_left(self.onsets, base + n_out)],
-                           dtype=np.int64)
+            lo = base - round(self.fs_d)
+            acc = self.onsets[bisect.bisect_left(self.onsets, lo):
+                              bisect.bisect_left(self.onsets, base + n_out)]
+            # (and the main clicks the main template found, up to this chunk's
+            # end: it scans each chunk before the second template does)
+            mf = self.main_found[bisect.bisect_left(self.main_found, lo):
+                                 bisect.bisect_left(self.main_found, base + self.E + self.C)]
+            ons = np.array(sorted(acc + mf), dtype=np.int64)
         else:
             ons = self._mains(base - round(self.fs_d), base + n_out)
         if ons.size < 3:
@@ -1895,6 +1913,7 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
         labels = short.astype(np.int64)  # a click a consistent fraction of a period late
     else:
         labels = _two_families(out, feats)
+    labels = _second_at_its_place(times, np.asarray(labels, dtype=np.int64))
     cycle = -1
     for c, lab in zip(out, labels):
         c.kind = int(lab)
@@ -1904,6 +1923,52 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
         else:
             c.cycle = cycle if cycle >= 0 else None
     return out, 2
+
+
+def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
+    """Relabel as second clicks the "main" clicks that sit where second clicks belong.
+
+    A second click found only by a template like the main click's may be
+    labelled main.  The place of the second click is the median of (second
+    click - main click before it) / (the local period: the median of the 9
+    main-to-main intervals around, leaving out those under 0.7 of their
+    upper quartile), from 8 or more labelled pairs; a main click that
+    follows another main click at that fraction (+-0.08) of the period, and
+    is followed by the next click at the rest of the period (+-0.08) or by
+    none, is a second click.
+    """
+    lab = labels.copy()
+    n = times.size
+    mains = np.flatnonzero(lab == 0)
+    if mains.size < 3:
+        return lab
+    gaps = np.diff(times[mains])
+    # the local period at each main click: the median of the 9 main-to-main
+    # intervals around it, leaving out those under 0.7 of their upper quartile
+    win = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, 4, mode="edge"), 9)
+    uq = np.percentile(win, 75, axis=1)
+    local = np.nanmedian(np.where(win >= 0.7 * uq[:, None], win, np.nan), axis=1)
+    period = np.append(local, local[-1])  # at mains[k]: the interval after it
+    r = []
+    for i in np.flatnonzero(lab == 1):
+        j = int(np.searchsorted(mains, i)) - 1
+        if j >= 0 and period[j] > 0:
+            r.append((times[i] - times[mains[j]]) / period[j])
+    if len(r) < 8:
+        return lab
+    phase = float(np.median(r))
+    pos = {int(m): k for k, m in enumerate(mains)}
+    for i in range(1, n):
+        if lab[i] != 0 or lab[i - 1] != 0:
+            continue
+        t_p = period[pos[i - 1]]
+        if t_p <= 0:
+            continue
+        here = (times[i] - times[i - 1]) / t_p
+        nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
+        if abs(here - phase) <= 0.08 and (nxt is None or abs(nxt - (1.0 - phase)) <= 0.08):
+            lab[i] = 1
+    return lab
 
 
 def _kind_features(clicks: list[Click]) -> np.ndarray:
@@ -2125,18 +2190,20 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         # do not; a live session ends a run 1 s after that click)
         gaps = np.diff(times[-9:])
         last = times[-1] + (float(np.median(gaps)) if gaps.size else 0.0)
-        for c in det._mf.clicks:  # in time order per template: merge the two
+        fits: dict[int, float] = {}
+        for c, fit in zip(det._mf.clicks, det._mf.click_fit):  # both templates' finds
             if c.time_s > last:
                 continue
             j = int(np.searchsorted(times, c.time_s))
             if any(abs(times[m] - c.time_s) < 0.010 for m in (j - 1, j) if 0 <= m < times.size):
                 continue
             extra.append(c)
+            fits[id(c)] = fit
         extra.sort(key=lambda c: c.sample)
         merged: list[Click] = []
-        for c in extra:  # of two templates' finds of one click, keep the stronger
+        for c in extra:  # of two templates' finds of one click, keep the better fit
             if merged and c.time_s - merged[-1].time_s < 0.010:
-                if c.strength > merged[-1].strength:
+                if fits[id(c)] > fits[id(merged[-1])]:
                     merged[-1] = c
                 continue
             merged.append(c)

@@ -434,3 +434,30 @@ def test_room_echo_of_the_main_click_is_not_a_second_click():
         np.array([c["time_s"] for c in truth["clicks"]]), est, window=0.005)
     assert p >= 0.98  # 0.95 when the echo made a second template
     assert res.clicks_per_cycle == 1
+
+
+def test_a_main_label_where_the_second_click_belongs_becomes_second():
+    from popmeter.detection import _second_at_its_place
+
+    # 20 cycles of 100 ms (slowing to 150 ms over the last 5), second click at
+    # 0.45 of the period; the last second click carries a main label, as when
+    # only a template like the main click's found it
+    mains, t = [], 0.0
+    for k in range(20):
+        mains.append(t)
+        t += 0.100 if k < 15 else 0.150
+    times, labels = [], []
+    for k, m in enumerate(mains):
+        period = 0.100 if k < 15 else 0.150
+        times += [m, m + 0.45 * period]
+        labels += [0, 1]
+    labels[-1] = 0
+    out = _second_at_its_place(np.array(times), np.array(labels))
+    assert out[-1] == 1
+    assert list(out[:-1]) == labels[:-1]
+    # a main click after a stall-shortened gap that is not at the phase stays main
+    labels2 = list(labels)
+    labels2[-1] = 1
+    times2 = times[:-1] + [times[-2] + 0.30 * 0.150]
+    out2 = _second_at_its_place(np.array(times2), np.array(labels2[:-1] + [0]))
+    assert out2[-1] == 0
