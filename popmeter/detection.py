@@ -1027,9 +1027,11 @@ class _TemplateScan:
     rising 6 dB over the envelope just before the template's length, with
     no accepted click within 10 ms.  With the second click's delay known,
     the largest envelope peak within +-(1 ms + 3 % of the delay) of each
-    expected second click counts at 3 times the floor alone if it rises
-    1.6 dB over the 2-4 ms before it (a narrow search: few noise peaks
-    compete; the filter's own response to the ring reaches back that far).
+    expected second click counts at 3 times the floor alone if it stands no
+    lower than the envelope 2-4 ms before it, so that it is not the falling
+    shoulder of something earlier (a narrow search: few noise peaks compete;
+    in a reverberant room the filter's response to the main click's echo
+    still fills the 2-4 ms before).
 
     **Streaming.**  Chunks are fixed in the stream, each template is frozen
     the moment its last example is measured (set by the audio alone), and a
@@ -1643,7 +1645,7 @@ class _TemplateScan:
             i = a + int(np.argmax(env[a:b]))
             ref = env[max(i - r2, 0):max(i - r1, 1)].max()
             if (score[i] >= self.expect_threshold and env[i] >= env[i - 1]
-                    and env[i] >= env[i + 1] and env[i] >= 1.2 * ref):
+                    and env[i] >= env[i + 1] and env[i] >= ref):
                 out.add(i)
         return out
 
