@@ -1812,8 +1812,11 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
     (within ``tolerance``) shared by at least 8 clicks or candidates, and by
     at least 5 % of the number of accepted clicks; a candidate within
     ``tolerance`` (relative) of one, and not within the refractory time of an
-    accepted click, is promoted.  Nothing is promoted in a recording with
-    fewer than 8 accepted clicks.
+    accepted click, is promoted -- unless it rings like the accepted click
+    just before it (within ``tolerance``), 9 dB or more weaker and within
+    60 ms: the room's echo of that click (a hard wall a few metres away; a
+    second click is about 6 dB under its main one).  Nothing is promoted in
+    a recording with fewer than 8 accepted clicks.
     """
     rings = np.array([c.ring_hz for c in kept if c.ring_hz], dtype=float)
     if rings.size < 8:
@@ -1847,6 +1850,14 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
             continue
         if out and c.time_s - out[-1].time_s < refractory_s:
             continue
+        if j > 0:
+            # a copy of the click just before (its ring, 9 dB or more weaker,
+            # within 60 ms) is that click's echo from the room, not a click
+            b = kept[j - 1]
+            if (c.time_s - b.time_s <= 0.060 and b.ring_hz
+                    and abs(math.log(c.ring_hz / b.ring_hz)) <= width
+                    and c.level_dbfs <= b.level_dbfs - 9.0):
+                continue
         out.append(copy.copy(c))
     return out
 
