@@ -1009,8 +1009,8 @@ class _TemplateScan:
     before, is learnt from that group (median, when the interquartile range
     is 0.05 or less).  When no such group forms (second clicks too weak for
     the frame detector), the cycles are folded at fixed counts of accepted
-    clicks (the 160th, then every 256th, at most 8 times) and the template is
-    made at the phase where their energy rises (:meth:`_fold_second`).
+    clicks (the 160th, then every 128th, at most 12 times) and the template
+    is made at the phase where their energy rises (:meth:`_fold_second`).
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
@@ -1082,13 +1082,18 @@ class _TemplateScan:
         self._spec = np.zeros(0, dtype=np.complex64)
         # second template by folding (see _fold_second): tried at fixed counts
         # of accepted clicks, so the result does not depend on block sizes
-        self.fold_every = 256
-        self.fold_tries = 8
+        self.fold_every = 128
+        self.fold_tries = 12
+        self.fold_window_s = 28.0
         self._next_fold = self.K + 128
         self._folds = 0
         self._n_accepted = 0
         self.folded = False  # the second template came from folding
         self._fold_sos = signal.butter(4, 500.0, "highpass", fs=fs_d, output="sos")
+        top = 0.45 * fs_d
+        self._fold_bands = [self._fold_sos] + [
+            signal.butter(2, (f, min(2 * f, top)), "bandpass", fs=fs_d, output="sos")
+            for f in (500.0, 1000.0, 2000.0, 4000.0) if 2 * f <= top * 1.5 and f < top]
 
     @property
     def templates(self) -> list[float]:
@@ -1198,21 +1203,28 @@ class _TemplateScan:
         """Find a second click too weak for the frame detector by folding the cycles.
 
         Synchronous averaging, or epoch folding (Leahy et al., ApJ 266, 1983;
-        Braun, Mech. Syst. Signal Process. 25, 2011; both from memory): the
-        in-band energy (500 Hz high-pass) of up to the last 20 s of complete
-        cycles between accepted clicks (intervals within 15 % of the median of
-        the 9 around: a missed click doubles one, a second click found splits
-        one) is cut into 80 bins of phase from 0.1 to 0.9 of the local period
-        (that median), each cycle divided by its own median, and the cycles
-        averaged.  Noise averages flat; a click at a fixed fraction of the
-        period adds up.  A second click is there when one bin rises 1.15 times
-        or more over the largest of the 2-5 bins before it, by 6 or more
-        standard errors (the cycle-to-cycle scatter over the square root of
-        the number of cycles), and by twice as many standard errors as any
-        rise more than 4 bins away.  (A room's echo of the main click folds,
-        at a steady rate, into many rises of like size, the random fine
-        structure of the reverberation; a second click is one rise well above
-        the rest.)
+        Braun, Mech. Syst. Signal Process. 25, 2011; both from memory).  The
+        cycles are the intervals between accepted clicks of up to the last
+        28 s that last about one local period (within 15 % of the median of
+        the 9 around), or about two with the main click between them missed
+        (split at the middle); an interval a second click splits is left out,
+        and nothing is folded when the intervals alternate short and long
+        (the frame detector already takes the second clicks: the examples
+        make that template).  The band energy of each cycle (the whole band
+        above 500 Hz, and its octaves from 500 Hz) is cut into 70 bins of
+        phase from 0.1 to 0.8 of the local period (to 0.8 only, so that the
+        next main click of a short cycle never folds in), each cycle divided
+        by its own median, and the cycles averaged.  Noise averages flat; a
+        click at a fixed fraction of the period adds up.  A second click is
+        there when, in some band, one bin rises 1.15 times or more over the
+        largest of the 2-5 bins before it, by 6 or more standard errors (the
+        cycle-to-cycle scatter over the square root of the number of cycles),
+        and by twice as many standard errors as any rise more than 4 bins
+        away; the band where it rises most is used.  (A room's echo of the
+        main click folds, at a steady rate, into many rises of like size, the
+        random fine structure of the reverberation; a second click is one
+        rise well above the rest.  In a reverberant room or deep in noise the
+        second click may stand out only in the octave where it rings.)
 
         Its template is the average of the windows at that phase, each
         aligned first on the peak of its 1 ms envelope at the ring frequency
@@ -1236,37 +1248,53 @@ class _TemplateScan:
         audio before it is used, so the result does not depend on block sizes.
         """
         fs = self.fs_d
-        lo = max(self.b0 + self.E + self.L, upto - round(20.0 * fs))
+        lo = max(self.b0 + self.E + self.L, upto - round(self.fold_window_s * fs))
         # every accepted click (in noise a main click's correlation with the
         # template is too uncertain to sort them): the period test below drops
         # the intervals a second click splits
         mains = np.array(self.onsets[bisect.bisect_left(self.onsets, lo):
                                      bisect.bisect_right(self.onsets, upto)], dtype=np.int64)
         self.fold_info = {"cycles": 0}
-        if mains.size < 65:
+        if mains.size < 33:
             return False
         per = np.diff(mains).astype(np.float64)
-        loc = np.median(np.lib.stride_tricks.sliding_window_view(np.pad(per, 4, mode="edge"), 9),
+        # the frame detector already takes most second clicks (intervals
+        # alternate short and long): the examples make that template, and a
+        # fold would only fold half cycles
+        if _alternation(np.log(per)[:, None]) < -0.5:
+            return False
+        med = np.median(np.lib.stride_tricks.sliding_window_view(np.pad(per, 4, mode="edge"), 9),
                         axis=1)
-        # whole cycles only: a missed main click doubles a period
-        ok = (np.abs(per / loc - 1.0) <= 0.15) & (per <= 0.5 * fs) & (per >= 0.01 * fs)
-        n = int(ok.sum())
+        # whole cycles: an interval of about one local period, or of two with
+        # the main click between them missed (split at its middle); an
+        # interval a second click splits is left out
+        kk = np.maximum(np.round(per / med), 1.0)
+        ok = ((np.abs(per / (kk * med) - 1.0) <= 0.15) & (kk <= 2) & (per / kk <= 0.5 * fs)
+              & (per / kk >= 0.01 * fs))
+        two = ok & (kk == 2)
+        st = np.concatenate([mains[:-1][ok], np.round(mains[:-1] + per / 2)[two]])
+        T = np.concatenate([(per / kk)[ok], (per / 2)[two]])
+        order = np.argsort(st, kind="stable")
+        st, T = st[order].astype(np.int64), T[order]
+        n = int(st.size)
         self.fold_info["cycles"] = n
         if n < 64:
             return False
-        st, T = mains[:-1][ok], per[ok]
+        # the local period of each cycle: the median of the 9 around
+        loc_t = np.median(np.lib.stride_tricks.sliding_window_view(
+            np.pad(T, 4, mode="edge"), 9), axis=1)
         a0 = int(st[0]) - self.b0
-        seg = self.buf[a0:int(st[-1] + T[-1]) - self.b0 + 1].astype(np.float64)
-        y = signal.sosfilt(self._fold_sos, seg)
-        c = np.concatenate([[0.0], np.cumsum(y * y)])
-        nb = 80
-        fr = 0.1 + 0.8 * np.arange(nb + 1) / nb
+        seg = self.buf[a0:int(st[-1] + max(T[-1], loc_t[-1])) - self.b0 + 1].astype(np.float64)
+        # (to 0.8 only: a cycle kept may be 15 % shorter than the local
+        # period, and the next main click must not fold in)
+        nb = 70
+        fr = 0.1 + 0.7 * np.arange(nb + 1) / nb
         k = np.arange(6, nb)
         ref_i = k[:, None] - np.arange(2, 6)[None, :]
 
-        def fold(scale: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-            # bins at the fractions fr of ``scale`` after each cycle's start;
-            # returns the rise's z and ratio per bin k
+        def fold(c: np.ndarray, scale: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+            # the energy whose running sum is c, in bins at the fractions fr
+            # of ``scale`` after each cycle's start; the rise's z and ratio per bin k
             edges = np.round((st - st[0])[:, None] + scale[:, None] * fr[None, :]).astype(np.int64)
             e = np.diff(c[edges], axis=1) / np.maximum(np.diff(edges, axis=1), 1)
             e = e / (np.median(e, axis=1, keepdims=True) + 1e-30)
@@ -1278,22 +1306,33 @@ class _TemplateScan:
             z = (prof[k] - ref) / np.sqrt(se[k] ** 2 + ref_se ** 2 + 1e-30)
             return z, prof[k] / ref
 
-        z, ratio = fold(loc[ok])
-        good = (ratio >= 1.15) & (z >= 6.0)
-        ib = int(np.argmax(np.where(good, z, -np.inf)))
-        # one rise that stands out: a room's echo of the main click folds into
-        # many rises of like size (the random fine structure of the
-        # reverberation); a second click is one rise well above the rest
-        rest = np.abs(np.arange(k.size) - ib) > 4
-        z_rest = float(z[rest].max()) if rest.any() else 0.0
-        self.fold_info.update(z=float(z[ib]), ratio=float(ratio[ib]), z_rest=z_rest)
-        if not good.any() or z[ib] < 2.0 * max(z_rest, 1.0):
+        # the whole band, and octaves of it: in a reverberant room or deep in
+        # noise the second click may stand out only where it rings and the
+        # main click's echo does not
+        best = None
+        for sos in self._fold_bands:
+            y = signal.sosfilt(sos, seg)
+            z, ratio = fold(np.concatenate([[0.0], np.cumsum(y * y)]), loc_t)
+            good = (ratio >= 1.15) & (z >= 6.0)
+            if not good.any():
+                continue
+            ib = int(np.argmax(np.where(good, z, -np.inf)))
+            # one rise that stands out: a room's echo of the main click folds
+            # into many rises of like size (the random fine structure of the
+            # reverberation); a second click is one rise well above the rest
+            rest = np.abs(np.arange(k.size) - ib) > 4
+            z_rest = float(z[rest].max()) if rest.any() else 0.0
+            if z[ib] >= 2.0 * max(z_rest, 1.0) and (best is None or z[ib] > best[0]):
+                best = (float(z[ib]), ib, float(ratio[ib]), z_rest)
+        if best is None:
             return False
+        self.fold_info.update(z=best[0], ratio=best[2], z_rest=best[3])
+        ib = best[1]
         kb = int(k[ib])
         # the rise lies within the bin before the one that rose most, or in it
         # (the delay follows the local period, the median of 9, rather than
         # one cycle's: less scatter from the timing of single main clicks)
-        delay = (fr[kb - 1] + 0.5 * (fr[kb] - fr[kb - 1])) * loc[ok]
+        delay = (fr[kb - 1] + 0.5 * (fr[kb] - fr[kb - 1])) * loc_t
         W = int(np.max(np.round(0.001 * fs + 0.03 * delay + (fr[1] - fr[0]) * T)))
         P, A, L = self.P, self.A, self.L
         m = 2 * W + round(0.004 * fs)  # the search window and 4 ms more
@@ -1301,7 +1340,7 @@ class _TemplateScan:
         span = pre + 2 * W + 2 * L + 2 * A
         starts = st + np.round(delay).astype(np.int64) - W - pre - self.b0
         keep = (starts >= 0) & (starts + span <= self.buf.size)
-        starts, st_k, loc_k = starts[keep], st[keep], loc[ok][keep]
+        starts, st_k, loc_k = starts[keep], st[keep], loc_t[keep]
         if starts.size < 64:
             return False
         X = self.buf[starts[:, None] + np.arange(span)[None, :]].astype(np.float64)
