@@ -475,7 +475,7 @@ class ClickDetector:
         self.samples_seen += x.size
         self._x = np.concatenate([self._x, x])
         y, self._hp_zi = signal.sosfilt(self._hp_sos, x, zi=self._hp_zi)
-        self._y = np.concatenate([self._y, y.astype(np.float32)])
+        self._y = np.concatenate([self._y, y], dtype=np.float32)
         # decimate: FIR with carried history, keep samples whose index is a multiple of q
         if self._q > 1:
             q = self._q
@@ -773,8 +773,11 @@ class ClickDetector:
                 ) -> np.ndarray:
         """Rows x[start:start + length] of the kept raw samples, zero outside."""
         x, x0 = (self._y if high_passed else self._x), self._x0
+        rel = starts - x0
+        if rel.size and rel.min() >= 0 and rel.max() + length <= x.size:  # (the usual case)
+            return _rows(x[None, :], rel, length, np.zeros(rel.size, dtype=np.int64))
         out = np.zeros((len(starts), length), dtype=np.float32)
-        for i, st in enumerate((starts - x0).tolist()):
+        for i, st in enumerate(rel.tolist()):
             a, b = max(st, 0), min(st + length, x.size)
             if b > a:
                 out[i, a - st:b - st] = x[a:b]
@@ -1411,7 +1414,7 @@ class _TemplateScan:
                                                              * grid[None, :])
                               ).astype(np.complex64))
         grid, basis = slot[5]
-        tails = np.lib.stride_tricks.sliding_window_view(self.buf, m)[st[ok]]
+        tails = _rows(self.buf[None, :], st[ok], m, np.zeros(ok.size, dtype=np.int64))
         db = 20 * np.log10(np.abs(tails @ basis) + 1e-30)
         k = np.argmax(db, axis=1)
         for row, (j, kk) in enumerate(zip(ok.tolist(), k.tolist())):
