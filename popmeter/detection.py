@@ -810,20 +810,23 @@ class ClickDetector:
         on_local = pk - self._pre + j  # index in y rows of the onset
         onsets = w0 + on_local
         feats = self._features(y, on_local, onsets)
-        feats = {key: val.tolist() if isinstance(val, np.ndarray) else val
-                 for key, val in feats.items()}
+        # (array features are read as numpy scalars: a float32 feature meets its
+        # threshold in float32)
+        level, rings, decays, attack, tonality, ring_snr, ring_snr_short = (
+            feats["level_dbfs"], feats["ring_hz"], feats["decay_s"], feats["attack_s"],
+            feats["tonality_db"], feats["ring_snr_db"], feats["ring_snr_short_db"])
         clicks: list[Click] = []
         for i, (c, onset) in enumerate(zip(cands, onsets.tolist())):
             if onset - self._last_onset < self._post:
                 continue  # the same click found twice
-            f = {key: val[i] for key, val in feats.items()}
             if self._debug is not None:
-                self._debug.append({"time_s": onset / fs, "strong": c.strong, "z": c.z, **f})
-            ring = f["ring_hz"]
+                self._debug.append({"time_s": onset / fs, "strong": c.strong, "z": c.z,
+                                    **{key: val[i] for key, val in feats.items()}})
+            ring = rings[i]
             ok = True
             if self.reject:
-                if (f["attack_s"] > self.max_attack_s or f["tonality_db"] < self.min_tonality_db
-                        or f["ring_snr_db"] < self.min_ring_snr_db):
+                if (attack[i] > self.max_attack_s or tonality[i] < self.min_tonality_db
+                        or ring_snr[i] < self.min_ring_snr_db):
                     ok = False
                 elif not c.strong:
                     rr = c.ring_range_hz
@@ -831,23 +834,23 @@ class ClickDetector:
             if not ok:
                 self.rejected += 1
                 self.rejected_times_s.append(onset / fs)
-                if (self.reject and ring is not None and f["attack_s"] <= self.max_attack_s
-                        and (c.strong or f["ring_snr_short_db"] >= self.min_ring_snr_db - 2.0)
+                if (self.reject and ring is not None and attack[i] <= self.max_attack_s
+                        and (c.strong or ring_snr_short[i] >= self.min_ring_snr_db - 2.0)
                         and len(self._second_look) < 200000):
                     if self._mf is not None:
                         self._mf.note_click(onset, accepted=False)
                     self._second_look.append(Click(
                         time_s=onset / fs, sample=onset,
-                        level_dbfs=round(float(f["level_dbfs"]), 3), strength=round(c.z, 3),
-                        ring_hz=ring, decay_s=f["decay_s"]))
+                        level_dbfs=round(float(level[i]), 3),
+                        strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
                 continue
             self._last_onset = onset
             if self._mf is not None:
                 self._mf.note_click(onset)
             self._bin_votes[c.band] += 1
             clicks.append(Click(time_s=onset / fs, sample=onset,
-                                level_dbfs=round(float(f["level_dbfs"]), 3),
-                                strength=round(c.z, 3), ring_hz=ring, decay_s=f["decay_s"]))
+                                level_dbfs=round(float(level[i]), 3),
+                                strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
         return clicks
 
     def _features(self, y: np.ndarray, on: np.ndarray, onsets: np.ndarray) -> dict:
