@@ -566,8 +566,13 @@ class ClickDetector:
             # ring buffer of the last stat_win frames' levels (row = frame mod stat_win);
             # written in the order the statistics schedule needs them
             self._lev_pending.append((f0, levels))
-            z, zb, ov = self._zscores(f0, rise, levels)
-            self._over_hist = np.vstack([self._over_hist, ov])
+            # the onset envelope per bin, written after the kept history (float64,
+            # the dtype the history has always had)
+            kept = self._over_hist.shape[0]
+            over = np.zeros((kept + levels.shape[0], levels.shape[1]))
+            over[:kept] = self._over_hist
+            z, zb = self._zscores(f0, rise, levels, over[kept:])
+            self._over_hist = over
             self._z_hist = np.concatenate([self._z_hist, z])
             self._zb_hist = np.concatenate([self._zb_hist, zb])
             # trim decimated buffer: keep from the next frame start
@@ -577,12 +582,15 @@ class ClickDetector:
                 self._d0 += cut
         self._pick(final=final)
 
-    def _zscores(self, f0: int, rise: np.ndarray, levels: np.ndarray
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def _zscores(self, f0: int, rise: np.ndarray, levels: np.ndarray, ov: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray]:
+        """Detection function (z) and its bin (zb) per frame; per bin values into ``ov``.
+
+        ``ov`` (frames x bins, zeros) receives the gated onset envelope.
+        """
         nf = rise.shape[0]
         z = np.zeros(nf)
         zb = np.zeros(nf, dtype=np.int64)
-        ov = np.zeros_like(levels)
         t = f0
         end = f0 + nf
         while t < end:
@@ -607,7 +615,7 @@ class ClickDetector:
                 z[t - f0:seg_end - f0] = zz[np.arange(zz.shape[0]), best]
                 zb[t - f0:seg_end - f0] = best
             t = seg_end
-        return z, zb, ov
+        return z, zb
 
     def _is_update(self, t: int) -> bool:
         if t <= 0:
