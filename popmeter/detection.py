@@ -478,7 +478,7 @@ class ClickDetector:
         self.samples_seen += x.size
         self._x = np.concatenate([self._x, x])
         y, self._hp_zi = signal.sosfilt(self._hp_sos, x, zi=self._hp_zi)
-        self._y = np.concatenate([self._y, y.astype(np.float32)])
+        self._y = np.concatenate([self._y, y], dtype=np.float32)
         # decimate: FIR with carried history, keep samples whose index is a multiple of q
         if self._q > 1:
             q = self._q
@@ -569,8 +569,13 @@ class ClickDetector:
             # ring buffer of the last stat_win frames' levels (row = frame mod stat_win);
             # written in the order the statistics schedule needs them
             self._lev_pending.append((f0, levels))
-            z, zb, ov = self._zscores(f0, rise, levels)
-            self._over_hist = np.vstack([self._over_hist, ov])
+            # the onset envelope per bin, written after the kept history (float64,
+            # the dtype the history has always had)
+            kept = self._over_hist.shape[0]
+            over = np.zeros((kept + levels.shape[0], levels.shape[1]))
+            over[:kept] = self._over_hist
+            z, zb = self._zscores(f0, rise, levels, over[kept:])
+            self._over_hist = over
             self._z_hist = np.concatenate([self._z_hist, z])
             self._zb_hist = np.concatenate([self._zb_hist, zb])
             # trim decimated buffer: keep from the next frame start
@@ -580,12 +585,15 @@ class ClickDetector:
                 self._d0 += cut
         self._pick(final=final)
 
-    def _zscores(self, f0: int, rise: np.ndarray, levels: np.ndarray
-                 ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    def _zscores(self, f0: int, rise: np.ndarray, levels: np.ndarray, ov: np.ndarray
+                 ) -> tuple[np.ndarray, np.ndarray]:
+        """Detection function (z) and its bin (zb) per frame; per bin values into ``ov``.
+
+        ``ov`` (frames x bins, zeros) receives the gated onset envelope.
+        """
         nf = rise.shape[0]
         z = np.zeros(nf)
         zb = np.zeros(nf, dtype=np.int64)
-        ov = np.zeros_like(levels)
         t = f0
         end = f0 + nf
         while t < end:
@@ -610,7 +618,7 @@ class ClickDetector:
                 z[t - f0:seg_end - f0] = zz[np.arange(zz.shape[0]), best]
                 zb[t - f0:seg_end - f0] = best
             t = seg_end
-        return z, zb, ov
+        return z, zb
 
     def _is_update(self, t: int) -> bool:
         if t <= 0:
@@ -776,8 +784,11 @@ class ClickDetector:
                 ) -> np.ndarray:
         """Rows x[start:start + length] of the kept raw samples, zero outside."""
         x, x0 = (self._y if high_passed else self._x), self._x0
+        rel = starts - x0
+        if rel.size and rel.min() >= 0 and rel.max() + length <= x.size:  # (the usual case)
+            return _rows(x[None, :], rel, length, np.zeros(rel.size, dtype=np.int64))
         out = np.zeros((len(starts), length), dtype=np.float32)
-        for i, st in enumerate((starts - x0).tolist()):
+        for i, st in enumerate(rel.tolist()):
             a, b = max(st, 0), min(st + length, x.size)
             if b > a:
                 out[i, a - st:b - st] = x[a:b]
@@ -810,20 +821,23 @@ class ClickDetector:
         on_local = pk - self._pre + j  # index in y rows of the onset
         onsets = w0 + on_local
         feats = self._features(y, on_local, onsets)
-        feats = {key: val.tolist() if isinstance(val, np.ndarray) else val
-                 for key, val in feats.items()}
+        # (array features are read as numpy scalars: a float32 feature meets its
+        # threshold in float32)
+        level, rings, decays, attack, tonality, ring_snr, ring_snr_short = (
+            feats["level_dbfs"], feats["ring_hz"], feats["decay_s"], feats["attack_s"],
+            feats["tonality_db"], feats["ring_snr_db"], feats["ring_snr_short_db"])
         clicks: list[Click] = []
         for i, (c, onset) in enumerate(zip(cands, onsets.tolist())):
             if onset - self._last_onset < self._post:
                 continue  # the same click found twice
-            f = {key: val[i] for key, val in feats.items()}
             if self._debug is not None:
-                self._debug.append({"time_s": onset / fs, "strong": c.strong, "z": c.z, **f})
-            ring = f["ring_hz"]
+                self._debug.append({"time_s": onset / fs, "strong": c.strong, "z": c.z,
+                                    **{key: val[i] for key, val in feats.items()}})
+            ring = rings[i]
             ok = True
             if self.reject:
-                if (f["attack_s"] > self.max_attack_s or f["tonality_db"] < self.min_tonality_db
-                        or f["ring_snr_db"] < self.min_ring_snr_db):
+                if (attack[i] > self.max_attack_s or tonality[i] < self.min_tonality_db
+                        or ring_snr[i] < self.min_ring_snr_db):
                     ok = False
                 elif not c.strong:
                     rr = c.ring_range_hz
@@ -831,23 +845,23 @@ class ClickDetector:
             if not ok:
                 self.rejected += 1
                 self.rejected_times_s.append(onset / fs)
-                if (self.reject and ring is not None and f["attack_s"] <= self.max_attack_s
-                        and (c.strong or f["ring_snr_short_db"] >= self.min_ring_snr_db - 2.0)
+                if (self.reject and ring is not None and attack[i] <= self.max_attack_s
+                        and (c.strong or ring_snr_short[i] >= self.min_ring_snr_db - 2.0)
                         and len(self._second_look) < 200000):
                     if self._mf is not None:
                         self._mf.note_click(onset, accepted=False)
                     self._second_look.append(Click(
                         time_s=onset / fs, sample=onset,
-                        level_dbfs=round(float(f["level_dbfs"]), 3), strength=round(c.z, 3),
-                        ring_hz=ring, decay_s=f["decay_s"]))
+                        level_dbfs=round(float(level[i]), 3),
+                        strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
                 continue
             self._last_onset = onset
             if self._mf is not None:
                 self._mf.note_click(onset)
             self._bin_votes[c.band] += 1
             clicks.append(Click(time_s=onset / fs, sample=onset,
-                                level_dbfs=round(float(f["level_dbfs"]), 3),
-                                strength=round(c.z, 3), ring_hz=ring, decay_s=f["decay_s"]))
+                                level_dbfs=round(float(level[i]), 3),
+                                strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
         return clicks
 
     def _features(self, y: np.ndarray, on: np.ndarray, onsets: np.ndarray) -> dict:
@@ -1710,7 +1724,7 @@ class _TemplateScan:
                                                              * grid[None, :])
                               ).astype(np.complex64))
         grid, basis = slot[5]
-        tails = np.lib.stride_tricks.sliding_window_view(self.buf, m)[st[ok]]
+        tails = _rows(self.buf[None, :], st[ok], m, np.zeros(ok.size, dtype=np.int64))
         db = 20 * np.log10(np.abs(tails @ basis) + 1e-30)
         k = np.argmax(db, axis=1)
         for row, (j, kk) in enumerate(zip(ok.tolist(), k.tolist())):
