@@ -1629,7 +1629,9 @@ class _TemplateScan:
         for i, ring in zip(order, rings):
             al, be, ga = env[i - 1], env[i], env[i + 1]
             den = al - 2 * be + ga
-            frac = 0.5 * (al - ga) / den if den < 0 else 0.0
+            # (in float64: a float32 sum would round the stream index itself,
+            # by up to 16 decimated samples after 93 minutes)
+            frac = float(0.5 * (al - ga) / den) if den < 0 else 0.0
             onset_in = round((base + i + frac) * self.q)
             d0 = base + i - self.b0
             raw = self.buf[max(d0, 0):max(d0 + round(0.005 * self.fs_d), 0)]
