@@ -1233,7 +1233,7 @@ class _TemplateScan:
         there when, in some band, one bin rises 1.15 times or more over the
         largest of the 2-5 bins before it, by 6 or more standard errors (the
         cycle-to-cycle scatter over the square root of the number of cycles),
-        and by twice as many standard errors as any rise more than 4 bins
+        and by three times as many standard errors as any rise more than 4 bins
         away; the band where it rises most is used.  (A room's echo of the
         main click folds, at a steady rate, into many rises of like size, the
         random fine structure of the reverberation; a second click is one
@@ -1336,7 +1336,7 @@ class _TemplateScan:
             # reverberation); a second click is one rise well above the rest
             rest = np.abs(np.arange(k.size) - ib) > 4
             z_rest = float(z[rest].max()) if rest.any() else 0.0
-            if z[ib] >= 2.0 * max(z_rest, 1.0) and (best is None or z[ib] > best[0]):
+            if z[ib] >= 3.0 * max(z_rest, 1.0) and (best is None or z[ib] > best[0]):
                 best = (float(z[ib]), ib, float(ratio[ib]), z_rest)
         if best is None:
             return False
@@ -1931,6 +1931,9 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     into two families along the detrended features and the labels smoothed
     by a two-state Viterbi pass that expects alternation but lets it restart
     after a gap (a missed click), so one lost click does not flip the rest.
+    Where the two families plainly ring apart, the timbre sets the labels
+    (:func:`_by_ring`), and a "main" click where the second click belongs
+    becomes a second click (:func:`_second_at_its_place`).
     When the second clicks are found only now and then there is no
     alternation to see; two more tests then also decide "two": a clear
     two-group split in level and timbre (:func:`_bimodal`: Lloyd's 2-means,
@@ -1981,7 +1984,8 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
         labels = short.astype(np.int64)  # a click a consistent fraction of a period late
     else:
         labels = _two_families(out, feats)
-    labels = _second_at_its_place(times, np.asarray(labels, dtype=np.int64))
+    labels = _by_ring(out, np.asarray(labels, dtype=np.int64))
+    labels = _second_at_its_place(times, labels)
     cycle = -1
     for c, lab in zip(out, labels):
         c.kind = int(lab)
@@ -1991,6 +1995,46 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
         else:
             c.cycle = cycle if cycle >= 0 else None
     return out, 2
+
+
+def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
+    """Label by timbre when the two families plainly ring apart.
+
+    The log ring frequencies are split in two by Lloyd's 2-means (started
+    from their 10th and 90th percentiles).  When the two groups are 15 % or
+    more apart, each holds 15 % or more of the rings and each is tight (the
+    median absolute deviation of its log ring under 3 %), the groups are the
+    families: the one with the louder median level is the main click.  A
+    click without a ring keeps its label.  (The alternation and level tests
+    can lose their phase where the rate changes fast, at the start and end of
+    a run; the timbre does not change.)  Otherwise the labels are returned
+    unchanged.
+    """
+    lab = labels.copy()
+    lr = np.array([math.log(c.ring_hz) if c.ring_hz else np.nan for c in clicks])
+    have = np.flatnonzero(np.isfinite(lr))
+    if have.size < 16:
+        return lab
+    v = lr[have]
+    ca, cb = np.percentile(v, [10, 90])
+    g = v > 0.5 * (ca + cb)
+    for _ in range(20):
+        if g.all() or not g.any():
+            return lab
+        ca, cb = float(np.mean(v[~g])), float(np.mean(v[g]))
+        new = v > 0.5 * (ca + cb)
+        if np.array_equal(new, g):
+            break
+        g = new
+    share = min(g.mean(), 1.0 - g.mean())
+    spread = max(float(np.median(np.abs(v[g] - np.median(v[g])))),
+                 float(np.median(np.abs(v[~g] - np.median(v[~g])))))
+    if cb - ca < math.log(1.15) or share < 0.15 or spread >= 0.03:
+        return lab
+    lv = np.array([clicks[i].level_dbfs for i in have])
+    high_is_main = np.median(lv[g]) > np.median(lv[~g])
+    lab[have] = np.where(g == high_is_main, 0, 1)
+    return lab
 
 
 def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:

@@ -476,3 +476,23 @@ def test_room_echo_of_a_click_is_not_promoted():
         np.array([c["time_s"] for c in truth["clicks"]]), est, window=0.005)
     assert p >= 0.98
     assert r >= 0.98
+
+
+def test_two_ring_families_set_the_kinds_where_alternation_lost_its_phase():
+    from popmeter.detection import Click, _by_ring
+
+    rng = np.random.default_rng(7)
+    clicks, truth = [], []
+    for k in range(40):
+        t = 0.1 * k
+        clicks.append(Click(t, int(t * FS), -10.0 + rng.normal(0, 0.5), 20.0,
+                            1200.0 * (1 + rng.normal(0, 0.005)), 0.01))
+        clicks.append(Click(t + 0.045, int((t + 0.045) * FS), -16.0 + rng.normal(0, 0.5), 15.0,
+                            2450.0 * (1 + rng.normal(0, 0.005)), 0.004))
+        truth += [0, 1]
+    labels = np.array(truth)
+    labels[:6] = 1 - labels[:6]  # the first three cycles swapped
+    assert list(_by_ring(clicks, labels)) == truth
+    # one tight family: nothing to split, the labels stay
+    one = [Click(c.time_s, c.sample, c.level_dbfs, c.strength, 1200.0, 0.01) for c in clicks]
+    assert list(_by_ring(one, labels)) == list(labels)
