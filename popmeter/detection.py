@@ -1088,6 +1088,7 @@ class _TemplateScan:
         # per click found: how well its template fits it (normalised
         # correlation, 0-1), to choose between two templates' finds of one click
         self.click_fit: list[float] = []
+        self.click_slot: list[int] = []  # which template found each click (0 main, 1 second)
         self.main_found: list[int] = []  # onsets (decimated) the main template found
         self.nfft = sp_fft.next_fast_len(self.C + self.E + self.E2 + self.L, real=True)
         f = np.arange(self.nfft // 2 + 1) * (fs_d / self.nfft)
@@ -1624,6 +1625,7 @@ class _TemplateScan:
             o = np.array(order)
             fit = env[o] / np.sqrt(np.maximum(ce[o + self.L] - ce[o], 1e-30))
             self.click_fit.extend(np.minimum(fit, 1.0).tolist())
+            self.click_slot.extend([si] * len(order))
             if si == 0:
                 self.main_found.extend((base + o).tolist())
         for i, ring in zip(order, rings):
@@ -1955,6 +1957,14 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     (clicks, clicks_per_cycle)
         New Click objects with ``kind`` and ``cycle`` set, and the decision.
     """
+    return _assign_kinds(clicks, clicks_per_cycle=clicks_per_cycle, hints=None)
+
+
+def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
+                  hints: np.ndarray | None) -> tuple[list[Click], int]:
+    """:func:`assign_kinds`, with ``hints``: per click 0 or 1 where the matched
+    filter's template tells the kind, -1 elsewhere (applied after the labels
+    by timbre, before the relabelling by place)."""
     if clicks_per_cycle not in (None, 1, 2):
         raise UsageError(f"clicks_per_cycle={clicks_per_cycle}: must be 1 or 2")
     n = len(clicks)
@@ -1985,6 +1995,8 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     else:
         labels = _two_families(out, feats)
     labels = _by_ring(out, np.asarray(labels, dtype=np.int64))
+    if hints is not None:
+        labels = np.where(hints >= 0, hints, labels)
     labels = _second_at_its_place(times, labels)
     cycle = -1
     for c, lab in zip(out, labels):
@@ -2005,13 +2017,16 @@ def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
     more apart, each holds 15 % or more of the rings and each is tight (the
     median absolute deviation of its log ring under 3 %), the groups are the
     families: the one with the louder median level is the main click.  A
-    click without a ring keeps its label.  (The alternation and level tests
+    click without a measured ring (or decay) keeps its label.  (The alternation and level tests
     can lose their phase where the rate changes fast, at the start and end of
     a run; the timbre does not change.)  Otherwise the labels are returned
     unchanged.
     """
     lab = labels.copy()
-    lr = np.array([math.log(c.ring_hz) if c.ring_hz else np.nan for c in clicks])
+    # (measured rings only: a click the matched filter found has its ring
+    # looked for near its template's, and a decay time of None)
+    lr = np.array([math.log(c.ring_hz) if c.ring_hz and c.decay_s else np.nan
+                   for c in clicks])
     have = np.flatnonzero(np.isfinite(lr))
     if have.size < 16:
         return lab
@@ -2292,6 +2307,7 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
             gone = {c.time_s for c in promoted}
             rejected_times = [t for t in rejected_times if t not in gone]
             rejected -= len(promoted)
+    found_by: dict[int, int] = {}
     if atypical and det._mf is not None and det._mf.clicks and len(kept) >= 8:
         # the matched-filter pass: clicks like the recording's own, not already found
         times = np.array([c.time_s for c in kept])
@@ -2303,14 +2319,16 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         gaps = np.diff(times[-9:])
         last = times[-1] + (float(np.median(gaps)) if gaps.size else 0.0)
         fits: dict[int, float] = {}
-        for c, fit in zip(det._mf.clicks, det._mf.click_fit):  # both templates' finds
-            if c.time_s > last:
+        slots: dict[int, int] = {}
+        for c, fit, si in zip(det._mf.clicks, det._mf.click_fit, det._mf.click_slot):
+            if c.time_s > last:  # (both templates' finds)
                 continue
             j = int(np.searchsorted(times, c.time_s))
             if any(abs(times[m] - c.time_s) < 0.010 for m in (j - 1, j) if 0 <= m < times.size):
                 continue
             extra.append(c)
             fits[id(c)] = fit
+            slots[id(c)] = si
         extra.sort(key=lambda c: c.sample)
         merged: list[Click] = []
         for c in extra:  # of two templates' finds of one click, keep the better fit
@@ -2319,10 +2337,15 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
                     merged[-1] = c
                 continue
             merged.append(c)
+        # the template that found a click tells its kind, once the second
+        # template has its place in the cycle (then it is the second family)
+        if det._mf.phase is not None:
+            found_by = {c.sample: slots[id(c)] for c in merged}
         extra = [copy.copy(c) for c in merged]
         if extra:
             kept = sorted(kept + extra, key=lambda c: c.sample)
-    labelled, cpc = assign_kinds(kept, clicks_per_cycle=clicks_per_cycle)
+    hints = np.array([found_by.get(c.sample, -1) for c in kept], dtype=np.int64)
+    labelled, cpc = _assign_kinds(kept, clicks_per_cycle=clicks_per_cycle, hints=hints)
     rings = [c.ring_hz for c in labelled if c.kind == 0 and c.ring_hz]
     ring = float(np.median(rings)) if rings else None
     all_rings = [c.ring_hz for c in labelled if c.ring_hz]
