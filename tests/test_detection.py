@@ -496,3 +496,24 @@ def test_two_ring_families_set_the_kinds_where_alternation_lost_its_phase():
     # one tight family: nothing to split, the labels stay
     one = [Click(c.time_s, c.sample, c.level_dbfs, c.strength, 1200.0, 0.01) for c in clicks]
     assert list(_by_ring(one, labels)) == list(labels)
+
+
+_EVEN = {"startup_level_db": 0.0, "fade_level_db": 0.0, "weak_pop_prob": 0.0}
+
+
+@pytest.mark.parametrize(("cnr", "cpc", "target"), [(20.0, 2, 0.97), (12.0, 1, 0.90),
+                                                    (12.0, 2, 0.90)])
+def test_issue_targets_with_every_pop_at_the_stated_ratio(cnr, cpc, target):
+    # the issue's F targets (mir_eval, +-5 ms) where every pop is at the stated
+    # click-to-noise ratio (a second click still 6 dB under its main one);
+    # these 40 s recordings give, on seeds 5-7: 20 dB two-click 0.998, 12 dB
+    # one-click 0.996-0.999, 12 dB two-click 0.935-0.965
+    x, truth, fs = _render(click_to_noise_db=cnr, seed=5, clicks_per_cycle=cpc,
+                           duration_s=40.0, **_EVEN)
+    res = detect_clicks(x, fs)
+    f, err_s, ring = _score(res, truth)
+    assert f >= target
+    assert res.clicks_per_cycle == cpc
+    assert ring <= 0.02
+    if cnr == 20.0:
+        assert err_s <= 0.3e-3
