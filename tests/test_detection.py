@@ -262,13 +262,16 @@ def test_generator_20db_timing_and_ring():
     f, err_s, ring = _score(res, truth)
     assert err_s <= 0.3e-3
     assert ring <= 0.02
-    # issue 3 asks 0.97; one-click engines give 0.962-0.989 on seeds 3-8 (24 s)
+    # the generator's default levels (start-up pops to -12 dB, fade pops to
+    # -18 dB, some under the noise here): 0.962-0.989 on seeds 3-8 (24 s); the
+    # issue's 0.97 with every pop at 20 dB: test_issue_targets_... below
     assert f >= 0.95
 
 
 def test_generator_12db_one_click_engine():
-    # issue 3 asks 0.90 at 12 dB; one-click engines give 0.896-0.908 on seeds
-    # 3-8 (24 s): the bound is the level reached, not the target
+    # the generator's default levels (faint start-up and fade pops, many under
+    # the noise at 12 dB): 0.896-0.908 on seeds 3-8 (24 s); the issue's 0.90
+    # with every pop at 12 dB: test_issue_targets_... below
     x, truth, fs = _render(click_to_noise_db=12.0, seed=4)
     res = detect_clicks(x, fs)
     f, _err_s, ring = _score(res, truth)
