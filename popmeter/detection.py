@@ -2016,17 +2016,17 @@ def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
     from their 10th and 90th percentiles).  When the two groups are 15 % or
     more apart, each holds 15 % or more of the rings and each is tight (the
     median absolute deviation of its log ring under 3 %), the groups are the
-    families: the one with the louder median level is the main click.  A
-    click without a measured ring (or decay) keeps its label.  (The alternation and level tests
+    families: the one with the louder median level is the main click, and
+    each click whose ring was measured (it has a decay time) takes its
+    group's kind.  A click the matched filter found keeps its label (its
+    ring was looked for near its template's, which tells nothing new;
+    :func:`_assign_kinds` lets the template tell its kind).  (The alternation and level tests
     can lose their phase where the rate changes fast, at the start and end of
     a run; the timbre does not change.)  Otherwise the labels are returned
     unchanged.
     """
     lab = labels.copy()
-    # (measured rings only: a click the matched filter found has its ring
-    # looked for near its template's, and a decay time of None)
-    lr = np.array([math.log(c.ring_hz) if c.ring_hz and c.decay_s else np.nan
-                   for c in clicks])
+    lr = np.array([math.log(c.ring_hz) if c.ring_hz else np.nan for c in clicks])
     have = np.flatnonzero(np.isfinite(lr))
     if have.size < 16:
         return lab
@@ -2048,7 +2048,9 @@ def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
         return lab
     lv = np.array([clicks[i].level_dbfs for i in have])
     high_is_main = np.median(lv[g]) > np.median(lv[~g])
-    lab[have] = np.where(g == high_is_main, 0, 1)
+    # (relabelled: the clicks whose ring was measured, i.e. with a decay time)
+    measured = np.array([clicks[i].decay_s is not None for i in have])
+    lab[have[measured]] = np.where(g == high_is_main, 0, 1)[measured]
     return lab
 
 
