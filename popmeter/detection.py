@@ -1022,9 +1022,10 @@ class _TemplateScan:
     second click's delay after its main click, as a fraction of the period
     before, is learnt from that group (median, when the interquartile range
     is 0.05 or less).  When no such group forms (second clicks too weak for
-    the frame detector), the cycles are folded at fixed counts of accepted
-    clicks (the 160th, then every 128th, at most 12 times) and the template
-    is made at the phase where their energy rises (:meth:`_fold_second`).
+    the frame detector), the cycles are folded at fixed places in the
+    stream (once the main template has scanned to 10 s, then every 5 s, at
+    most 12 times) and the template is made at the phase where their energy
+    rises (:meth:`_fold_second`).
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
@@ -1085,6 +1086,7 @@ class _TemplateScan:
         self.slots: list[list] = [[None, 0.0, None, 0, 1.0, None],
                                   [None, 0.0, None, 0, 1.0, None]]
         self.clicks: list[Click] = []
+        self._candidates: list[tuple[int, np.ndarray]] = []  # second-family examples to take
         # per click found: how well its template fits it (normalised
         # correlation, 0-1), to choose between two templates' finds of one click
         self.click_fit: list[float] = []
@@ -1097,12 +1099,11 @@ class _TemplateScan:
         self._spec = np.zeros(0, dtype=np.complex64)
         # second template by folding (see _fold_second): tried at fixed counts
         # of accepted clicks, so the result does not depend on block sizes
-        self.fold_every = 128
+        self.fold_every = round(5.0 * fs_d)  # decimated samples between folds
         self.fold_tries = 12
         self.fold_window_s = 28.0
-        self._next_fold = self.K + 128
+        self._next_fold = round(10.0 * fs_d)  # (at 10 s of stream, then every 5 s)
         self._folds = 0
-        self._n_accepted = 0
         self.folded = False  # the second template came from folding
         self._fold_sos = signal.butter(4, 500.0, "highpass", fs=fs_d, output="sos")
         top = 0.45 * fs_d
@@ -1124,13 +1125,6 @@ class _TemplateScan:
         main, second = self.slots
         if accepted:
             self.onsets.append(od)
-            self._n_accepted += 1
-            if (main[0] is not None and second[0] is None and self._n_accepted >= self._next_fold
-                    and self._folds < self.fold_tries):
-                self._next_fold = self._n_accepted + self.fold_every
-                self._folds += 1
-                if self._fold_second(od):
-                    self.examples, self.example_onsets = [], []
         elif main[0] is None:
             return
         if second[0] is not None:
@@ -1139,25 +1133,36 @@ class _TemplateScan:
         if a < 0 or a + self.L + 2 * self.A > self.buf.size:
             return
         ex = self.buf[a:a + self.L + 2 * self.A].astype(np.float64)
-        if main[0] is not None:
-            # a candidate for the second family: unlike the main template
-            e = ex - ex.mean()
-            c = np.correlate(e, main[2], "valid") / (np.sqrt(np.convolve(
-                e * e, np.ones(self.L), "valid")) + 1e-20)
-            if float(np.max(np.abs(c))) >= 0.55:
-                return
-        self.examples.append(ex)
-        self.example_onsets.append(od)
-        if main[0] is None and len(self.examples) >= self.K:
-            self._make_template(main)
-            self.examples, self.example_onsets = [], []
-        elif (main[0] is not None and len(self.examples) >= self.K // 2
-              and len(self.examples) % 8 == 0):  # (a new try every 8 examples)
-            if self._make_template(second):
+        if main[0] is None:
+            self.examples.append(ex)
+            self.example_onsets.append(od)
+            if len(self.examples) >= self.K:
+                self._make_template(main)
                 self.examples, self.example_onsets = [], []
-            elif len(self.examples) >= 2 * self.K:
-                self.examples = self.examples[self.K // 2:]
-                self.example_onsets = self.example_onsets[self.K // 2:]
+            return
+        # a candidate for the second family: unlike the main template (taken
+        # up in :meth:`advance`, in stream order with the folds)
+        e = ex - ex.mean()
+        c = np.correlate(e, main[2], "valid") / (np.sqrt(np.convolve(
+            e * e, np.ones(self.L), "valid")) + 1e-20)
+        if float(np.max(np.abs(c))) < 0.55:
+            self._candidates.append((od, ex))
+
+    def _take_candidates(self, upto: int) -> None:
+        """Second-family candidates before ``upto`` (decimated): a template try every 8."""
+        second = self.slots[1]
+        while self._candidates and self._candidates[0][0] < upto:
+            od, ex = self._candidates.pop(0)
+            if second[0] is not None:
+                continue
+            self.examples.append(ex)
+            self.example_onsets.append(od)
+            if len(self.examples) >= self.K // 2 and len(self.examples) % 8 == 0:
+                if self._make_template(second):
+                    self.examples, self.example_onsets = [], []
+                elif len(self.examples) >= 2 * self.K:
+                    self.examples = self.examples[self.K // 2:]
+                    self.example_onsets = self.example_onsets[self.K // 2:]
 
     def _make_template(self, slot: list) -> bool:
         A, L = self.A, self.L
@@ -1193,8 +1198,8 @@ class _TemplateScan:
             return False  # the main click again
         if slot is self.slots[1]:
             self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
-            if self.phase is None and self._folds == 0:
-                return False  # no place in the cycle: first let folding look for one
+            if self.phase is None and self._folds < 4:
+                return False  # no place in the cycle: first let folding look (to 25 s)
         self._install(slot, h)
         return True
 
@@ -1259,16 +1264,21 @@ class _TemplateScan:
         * the phase lies within the bins that rose.
 
         Returns True when the second template and the second click's phase
-        were set.  ``upto`` is the latest accepted onset (decimated); only
-        audio before it is used, so the result does not depend on block sizes.
+        were set.  ``upto`` (decimated) is where the main template has
+        scanned to; only the clicks and audio before it are used, and folds
+        run at fixed places in the stream (every 5 s from 10 s, at most 12
+        times), so the result does not depend on block sizes.
         """
         fs = self.fs_d
         lo = max(self.b0 + self.E + self.L, upto - round(self.fold_window_s * fs))
         # every accepted click (in noise a main click's correlation with the
-        # template is too uncertain to sort them): the period test below drops
-        # the intervals a second click splits
-        mains = np.array(self.onsets[bisect.bisect_left(self.onsets, lo):
-                                     bisect.bisect_right(self.onsets, upto)], dtype=np.int64)
+        # template is too uncertain to sort them) and every click the main
+        # template found: the period test below drops the intervals a second
+        # click splits
+        mains = np.array(sorted(
+            self.onsets[bisect.bisect_left(self.onsets, lo):bisect.bisect_left(self.onsets, upto)]
+            + self.main_found[bisect.bisect_left(self.main_found, lo):
+                              bisect.bisect_left(self.main_found, upto)]), dtype=np.int64)
         self.fold_info = {"cycles": 0}
         if mains.size < 33:
             return False
@@ -1532,8 +1542,14 @@ class _TemplateScan:
             if self.n < need or done_d < need:
                 return False
             # without its template, a chunk waits while the template may still
-            # form in time for it
-            return slot[0] is not None or done_d >= a + self.C + self.lookback
+            # form in time for it: the main one, until the accepted clicks are
+            # that far ahead; the second one (made as the main template scans
+            # on), until the main template has scanned that far ahead
+            if slot[0] is not None:
+                return True
+            if slot is self.slots[1] and self.slots[0][0] is not None:
+                return self.slots[0][3] >= a + self.C + self.lookback
+            return done_d >= a + self.C + self.lookback
 
         while True:
             # the earliest chunk first, so both templates scan a chunk in turn
@@ -1544,6 +1560,17 @@ class _TemplateScan:
             if slot[0] is not None:
                 self._scan(slot[3], next(i for i, sl in enumerate(self.slots) if sl is slot))
             slot[3] += self.C
+            # the second template, from examples and by folding, in stream
+            # order: once the main template has scanned to a place, every
+            # click before it is known (so block sizes do not matter)
+            if slot is self.slots[0] and slot[0] is not None:
+                self._take_candidates(slot[3])
+                if (self.slots[1][0] is None and self._folds < self.fold_tries
+                        and slot[3] >= self._next_fold):
+                    self._next_fold = slot[3] + self.fold_every
+                    self._folds += 1
+                    if self._fold_second(slot[3]):
+                        self.examples, self.example_onsets = [], []
         first = min(s[3] for s in self.slots)
         # (and 1 s more: the main clicks before a chunk place its second clicks)
         keep = first - self.E - self.P - self.C
@@ -1979,8 +2006,12 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
     phase, short = (_second_click_phase(times, feats[:, 0]) if n >= 12
                     else (None, np.zeros(n, bool)))
     if decided is None:
+        # (or many clicks found by a second template that has its place in
+        # the cycle: in deep noise the first stage takes too few of either
+        # family for the other tests)
+        by_second = int(np.sum(hints == 1)) if hints is not None else 0
         decided = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)
-                        or phase is not None) else 1
+                        or phase is not None or by_second >= max(8, 0.15 * n)) else 1
     if decided == 1 or n < 2:
         for i, c in enumerate(out):
             c.kind = 0
