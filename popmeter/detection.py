@@ -1256,7 +1256,7 @@ class _TemplateScan:
         when:
 
         * the even and the odd cycles, each aligned on their own average,
-          give the same waveform (correlation 0.6 or more): a click, not
+          give the same waveform (correlation 0.5 or more): a click, not
           noise the alignment locked on;
         * the average's energy rises 5 dB or more within 0.5 ms at the onset
           (over the 2 ms before): a click starts abruptly;
@@ -1441,7 +1441,7 @@ class _TemplateScan:
         consistent = fr[kb - 2] <= phase <= fr[kb + 1] if kb + 1 <= nb else False
         self.fold_info.update(agree=agree, like_main=like_main, ring_hz=f2, sharp=sharp,
                               phase=phase, kb=kb)
-        if agree < 0.6 or like_main > 0.95 or not consistent or sharp < 5.0:
+        if agree < 0.5 or like_main > 0.95 or not consistent or sharp < 5.0:
             return False
         self.phase = phase
         self.folded = True
@@ -2011,7 +2011,7 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
         # family for the other tests)
         by_second = int(np.sum(hints == 1)) if hints is not None else 0
         decided = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)
-                        or phase is not None or by_second >= max(8, 0.15 * n)) else 1
+                        or phase is not None or by_second >= max(8, 0.10 * n)) else 1
     if decided == 1 or n < 2:
         for i, c in enumerate(out):
             c.kind = 0
