@@ -1110,6 +1110,9 @@ class _TemplateScan:
         self._fold_bands = [self._fold_sos] + [
             signal.butter(2, (f, min(2 * f, top)), "bandpass", fs=fs_d, output="sos")
             for f in (500.0, 1000.0, 2000.0, 4000.0) if 2 * f <= top * 1.5 and f < top]
+        self._band_zi = [np.zeros((sos.shape[0], 2)) for sos in self._fold_bands]
+        self._band_e: list[np.ndarray] | None = [np.zeros(0, dtype=np.float32)
+                                                 for _ in self._fold_bands]
 
     @property
     def templates(self) -> list[float]:
@@ -1119,6 +1122,12 @@ class _TemplateScan:
     def feed(self, dec: np.ndarray) -> None:
         self.buf = np.concatenate([self.buf, dec])
         self.n += dec.size
+        if self._band_e is not None:
+            # the band energies the folds read, kept beside the buffer while
+            # a fold may still come (each filter's state carried on)
+            for j, sos in enumerate(self._fold_bands):
+                y, self._band_zi[j] = signal.sosfilt(sos, dec, zi=self._band_zi[j])
+                self._band_e[j] = np.concatenate([self._band_e[j], (y * y).astype(np.float32)])
 
     def note_click(self, onset_in: int, *, accepted: bool = True) -> None:
         od = round(onset_in / self.q)
@@ -1309,7 +1318,7 @@ class _TemplateScan:
         loc_t = np.median(np.lib.stride_tricks.sliding_window_view(
             np.pad(T, 4, mode="edge"), 9), axis=1)
         a0 = int(st[0]) - self.b0
-        seg = self.buf[a0:int(st[-1] + max(T[-1], loc_t[-1])) - self.b0 + 1].astype(np.float64)
+        a1 = int(st[-1] + max(T[-1], loc_t[-1])) - self.b0 + 1
         # (to 0.8 only: a cycle kept may be 15 % shorter than the local
         # period, and the next main click must not fold in)
         nb = 70
@@ -1335,9 +1344,9 @@ class _TemplateScan:
         # noise the second click may stand out only where it rings and the
         # main click's echo does not
         best = None
-        for sos in self._fold_bands:
-            y = signal.sosfilt(sos, seg)
-            z, ratio = fold(np.concatenate([[0.0], np.cumsum(y * y)]), loc_t)
+        for e_band in self._band_e or []:
+            z, ratio = fold(np.concatenate([[0.0], np.cumsum(e_band[a0:a1], dtype=np.float64)]),
+                            loc_t)
             good = (ratio >= 1.15) & (z >= 6.0)
             if not good.any():
                 continue
@@ -1574,8 +1583,13 @@ class _TemplateScan:
         first = min(s[3] for s in self.slots)
         # (and 1 s more: the main clicks before a chunk place its second clicks)
         keep = first - self.E - self.P - self.C
+        if self._band_e is not None and (self.slots[1][0] is not None
+                                         or self._folds >= self.fold_tries):
+            self._band_e = None  # no fold to come
         if keep > self.b0:
             self.buf = self.buf[keep - self.b0:]
+            if self._band_e is not None:
+                self._band_e = [e[keep - self.b0:] for e in self._band_e]
             self.b0 = keep
         lo = first - self.E - self.C
         if self.onsets and self.onsets[0] < lo:
