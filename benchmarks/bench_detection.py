@@ -104,6 +104,13 @@ def evaluate(samples: np.ndarray, truth: dict, fs: int) -> dict:
     }
 
 
+def _nanmean(values: list) -> float:
+    """Mean of the finite values; nan (quietly) when there are none."""
+    v = np.asarray(values, dtype=float)
+    v = v[np.isfinite(v)]
+    return float(v.mean()) if v.size else float("nan")
+
+
 EVEN = {"startup_level_db": 0.0, "fade_level_db": 0.0, "weak_pop_prob": 0.0}
 
 
@@ -131,18 +138,18 @@ def accuracy(seeds: list[int], duration_s: float, condition: str) -> None:
             rr = [r for r in rows if r["name"] == name]
             print(f"{name:24s} {np.mean([r['F'] for r in rr]):6.3f} "
                   f"{np.mean([r['P'] for r in rr]):6.3f} {np.mean([r['R'] for r in rr]):6.3f} "
-                  f"{np.nanmean([r['R_strong'] for r in rr]):8.3f} "
-                  f"{np.nanmean([r['R_weak'] for r in rr]):7.3f} "
+                  f"{_nanmean([r['R_strong'] for r in rr]):8.3f} "
+                  f"{_nanmean([r['R_weak'] for r in rr]):7.3f} "
                   f"{np.nanmedian([r['err_ms'] for r in rr]):8.3f} "
                   f"{np.nanmedian([r['ring_pct'] for r in rr]):7.2f} "
                   f"{np.nanmax([r['ring95_pct'] for r in rr]):7.2f} "
                   f"{sum(r['cpc_ok'] for r in rr)}/{len(rr):<4d} "
-                  f"{np.nanmean([r['kind_pct'] for r in rr]):6.1f} "
+                  f"{_nanmean([r['kind_pct'] for r in rr]):6.1f} "
                   f"{np.mean([r['rejected'] for r in rr]):5.0f}")
         print(f"{'ALL':24s} {np.mean([r['F'] for r in rows]):6.3f} "
               f"{np.mean([r['P'] for r in rows]):6.3f} {np.mean([r['R'] for r in rows]):6.3f} "
-              f"{np.nanmean([r['R_strong'] for r in rows]):8.3f} "
-              f"{np.nanmean([r['R_weak'] for r in rows]):7.3f} "
+              f"{_nanmean([r['R_strong'] for r in rows]):8.3f} "
+              f"{_nanmean([r['R_weak'] for r in rows]):7.3f} "
               f"{np.nanmedian([r['err_ms'] for r in rows]):8.3f} "
               f"{np.nanmedian([r['ring_pct'] for r in rows]):7.2f} "
               f"{np.nanmax([r['ring95_pct'] for r in rows]):7.2f} "
