@@ -1024,8 +1024,9 @@ class _TemplateScan:
     is 0.05 or less).  When no such group forms (second clicks too weak for
     the frame detector), the cycles are folded at fixed places in the
     stream (once the main template has scanned to 10 s, then every 5 s, at
-    most 12 times) and the template is made at the phase where their energy
-    rises (:meth:`_fold_second`).
+    most 12 times, and no more once 200 cycles show no rise at all) and the
+    template is made at the phase where their energy rises
+    (:meth:`_fold_second`).
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
@@ -1344,9 +1345,11 @@ class _TemplateScan:
         # noise the second click may stand out only where it rings and the
         # main click's echo does not
         best = None
+        z_top = 0.0
         for e_band in self._band_e or []:
             z, ratio = fold(np.concatenate([[0.0], np.cumsum(e_band[a0:a1], dtype=np.float64)]),
                             loc_t)
+            z_top = max(z_top, float(z.max()))
             good = (ratio >= 1.15) & (z >= 6.0)
             if not good.any():
                 continue
@@ -1358,7 +1361,12 @@ class _TemplateScan:
             z_rest = float(z[rest].max()) if rest.any() else 0.0
             if z[ib] >= 3.0 * max(z_rest, 1.0) and (best is None or z[ib] > best[0]):
                 best = (float(z[ib]), ib, float(ratio[ib]), z_rest)
+        self.fold_info["z_top"] = z_top
         if best is None:
+            if n >= 200 and z_top < 3.0:
+                # 200 cycles and not even a hint of a rise anywhere: a
+                # one-click engine; no more folds (they cost time)
+                self._folds = self.fold_tries
             return False
         self.fold_info.update(z=best[0], ratio=best[2], z_rest=best[3])
         ib = best[1]
