@@ -1570,7 +1570,9 @@ class _TemplateScan:
         i1 = bisect.bisect_left(self.onsets, base + n_out + self.E2)
         on = np.array(self.onsets[i0:i1], dtype=np.int64) - base
         r_near = round(0.010 * self.fs_d)  # within 10 ms of an accepted click
-        near = _cover(on - r_near, on + r_near + 1, n_out)
+        expect = si == 1 and self.phase is not None
+        # (as a mask only for the expected-click search; the free scan asks at its peaks)
+        near = _cover(on - r_near, on + r_near + 1, n_out) if expect else None
         # noise level: the envelope's median per 10 ms bin; the floor is the
         # lower decile of those medians within +-0.5 s (robust to clicks
         # covering up to 90 % of the time), divided by its value for noise
@@ -1598,31 +1600,40 @@ class _TemplateScan:
         prev = p0 + p1 + p2 - np.maximum(np.maximum(p0, p1), p2) - np.minimum(
             np.minimum(p0, p1), p2)  # median of three
         lvl_b = np.maximum(floor, prev) / 1.1774
-        lvl = np.full(n_out, lvl_b[-1] if nb else float(np.median(env)) / 1.1774)
-        lvl[:nb * g] = np.repeat(lvl_b, g)
+        if nb:  # the level at output i is that of its bin (the last bin's past the end)
+            lvl = np.append(lvl_b, lvl_b[-1])
+        else:
+            lvl = np.full(1, float(np.median(env)) / 1.1774)
         r1, r2 = round(0.005 * self.fs_d), round(0.012 * self.fs_d)
         l1, l2 = self.L + round(0.004 * self.fs_d), self.L + round(0.001 * self.fs_d)
         i0, i1 = self.E, min(self.E + self.C, n_out - 1)
-        mid = env[i0:i1]
-        c = np.flatnonzero((mid >= env[i0 - 1:i1 - 1]) & (mid > env[i0 + 1:i1 + 1])
-                           & ~near[i0:i1]) + i0
+        # (each test on the candidates the ones before left standing; first a
+        # bound every peak over the threshold passes: above it times the lowest level)
+        c = np.flatnonzero(env[i0:i1] >= np.float32(0.99 * self.threshold * float(lvl.min()))
+                           ) + i0
+        c = c[(env[c] >= env[c - 1]) & (env[c] > env[c + 1])]  # the peaks
+        if on.size:  # no accepted click within r_near
+            k = np.minimum(np.searchsorted(on, c - r_near), on.size - 1)
+            c = c[~((on[k] >= c - r_near) & (on[k] <= c + r_near))]
         # the envelope over its noise level, at the peaks only
-        c = c[env[c] / np.maximum(lvl[c], 1e-30) >= self.threshold]
-        epad = np.concatenate([env, np.zeros(r2 + 1)])
-        # (each test on the peaks the ones before left standing)
+        lvl_c = lvl[np.minimum(c // g, lvl.size - 1)]
+        c = c[env[c] / np.maximum(lvl_c, 1e-30) >= self.threshold]
+        last = n_out - 1  # (indices past the end clipped: env >= 0 and the end is in the window)
         c = c[base + c - l1 >= 0]  # the stream's start is no reference
-        c = c[env[c] > epad[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)]
-        c = c[env[c] >= epad[c[:, None] + np.arange(1, r2 + 1)[None, :]].max(axis=1)]
-        c = c[env[c] >= 2.0 * epad[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)]
+        c = c[env[c] > env[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)]
+        c = c[env[c] >= env[np.minimum(c[:, None] + np.arange(1, r2 + 1)[None, :], last)
+                            ].max(axis=1)]
+        c = c[env[c] >= 2.0 * env[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)]
         found = set(c.tolist())
-        if si == 1 and self.phase is not None:
+        if expect:
             found |= self._expected(base, n_out, env, env * (1.1774 / floor), near)
         order = sorted(found)
         rings = self._rings([base + i - self.b0 for i in order], si)
         if order:
-            ce = np.concatenate([[0.0], np.cumsum(seg.astype(np.float64) ** 2)])
             o = np.array(order)
-            fit = env[o] / np.sqrt(np.maximum(ce[o + self.L] - ce[o], 1e-30))
+            w = _rows(seg[None, :], o, self.L, np.zeros(o.size, dtype=np.int64)
+                      ).astype(np.float64)
+            fit = env[o] / np.sqrt(np.maximum(np.einsum("ij,ij->i", w, w), 1e-30))
             self.click_fit.extend(np.minimum(fit, 1.0).tolist())
             if si == 0:
                 self.main_found.extend((base + o).tolist())
@@ -1639,7 +1650,8 @@ class _TemplateScan:
             self.clicks.append(Click(time_s=onset_in / self.fs_in, sample=onset_in,
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
                                      strength=round(20 * math.log10(
-                                         float(env[i] / np.maximum(lvl[i], 1e-30))), 3),
+                                         float(env[i] / np.maximum(
+                                             lvl[min(i // g, lvl.size - 1)], 1e-30))), 3),
                                      ring_hz=ring, decay_s=None))
 
     def _expected(self, base: int, n_out: int, env: np.ndarray, score: np.ndarray,
