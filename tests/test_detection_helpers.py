@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from popmeter.detection import _cover, _percentile, _rows
+from popmeter.detection import _cover, _local_periods, _percentile, _rows
 
 
 @pytest.mark.parametrize("q", [5, 10, 25, 50, 75, 90, 95])
@@ -43,3 +43,23 @@ def test_rows_equals_fancy_indexing():
     pick = np.array([4, 1, 1])
     ref = x[pick[:, None], starts[:3, None] + np.arange(10)[None, :]]
     assert np.array_equal(_rows(x, starts[:3], 10, pick), ref)
+
+
+def test_local_periods_equals_numpy():
+    # reference: numpy.percentile (linear method) and numpy.nanmedian over the
+    # 9-wide windows of the edge-padded gaps, the formulation it replaces
+    rng = np.random.default_rng(10)
+    for n in list(range(1, 14)) + [40, 120]:
+        for _ in range(30):
+            gaps = rng.integers(1, 4000, n).astype(np.float64)
+            if rng.integers(2) == 0:  # two-click engine: short and long gaps, some merged
+                gaps = np.where(rng.random(n) < 0.5, 0.3, 0.7) * 2400.0 + rng.normal(0, 20, n)
+                gaps[rng.random(n) < 0.1] *= 2.0
+            if rng.integers(3) == 0:
+                gaps = np.round(gaps, -2)  # ties
+            win9 = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, 4, mode="edge"), 9)
+            uq = np.percentile(win9, 75, axis=1)
+            expected = np.nanmedian(np.where(win9 >= 0.75 * uq[:, None], win9, np.nan), axis=1)
+            got = _local_periods(gaps)
+            assert np.array_equal(got, expected)
+    assert _local_periods(np.zeros(0)).size == 0
