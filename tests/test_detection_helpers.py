@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from popmeter.detection import _cover, _local_periods, _percentile, _rows
+from popmeter.detection import _cover, _local_periods, _percentile, _row_dots, _rows
 
 
 @pytest.mark.parametrize("q", [5, 10, 25, 50, 75, 90, 95])
@@ -63,3 +63,15 @@ def test_local_periods_equals_numpy():
             got = _local_periods(gaps)
             assert np.array_equal(got, expected)
     assert _local_periods(np.zeros(0)).size == 0
+
+
+def test_row_dots_equals_matmul():
+    # reference: numpy.matmul in float64 (float32 sums: a few ulps apart)
+    rng = np.random.default_rng(11)
+    for k in (0, 1, 7, 40):
+        a = rng.standard_normal((k, 480)).astype(np.float32)
+        b = rng.standard_normal((130, 480)).astype(np.float32)
+        got = _row_dots(a, b)
+        assert got.shape == (k, 130)
+        ref = a.astype(np.float64) @ b.astype(np.float64).T
+        assert np.allclose(got, ref, rtol=0, atol=1e-4 * max(1.0, float(np.abs(ref).max(initial=0))))
