@@ -98,6 +98,9 @@ def evaluate(samples: np.ndarray, truth: dict, fs: int) -> dict:
         "R_weak": float(matched[~strong].mean()) if (~strong).any() else float("nan"),
         "n_weak": int((~strong).sum()),
         "rejected": res.rejected,
+        # share of the matched clicks whose kind (main/second) is the truth's
+        "kind_pct": float(np.mean([truth["clicks"][i]["kind"] == res.clicks[j].kind
+                                   for i, j in pairs]) * 100) if pairs else float("nan"),
     }
 
 
@@ -122,7 +125,8 @@ def accuracy(seeds: list[int], duration_s: float, condition: str) -> None:
                 cpc_all.append(m["cpc_ok"])
         print(f"\nclick-to-noise {cnr:.0f} dB")
         print(f"{'scenario':24s} {'F':>6s} {'P':>6s} {'R':>6s} {'R>=-6dB':>8s} {'R<-6dB':>7s} "
-              f"{'|err| ms':>8s} {'ring %':>7s} {'ring95%':>7s} {'cpc ok':>6s} {'rej':>5s}")
+              f"{'|err| ms':>8s} {'ring %':>7s} {'ring95%':>7s} {'cpc ok':>6s} {'kind %':>6s} "
+              f"{'rej':>5s}")
         for name in SCENARIOS:
             rr = [r for r in rows if r["name"] == name]
             print(f"{name:24s} {np.mean([r['F'] for r in rr]):6.3f} "
@@ -133,6 +137,7 @@ def accuracy(seeds: list[int], duration_s: float, condition: str) -> None:
                   f"{np.nanmedian([r['ring_pct'] for r in rr]):7.2f} "
                   f"{np.nanmax([r['ring95_pct'] for r in rr]):7.2f} "
                   f"{sum(r['cpc_ok'] for r in rr)}/{len(rr):<4d} "
+                  f"{np.nanmean([r['kind_pct'] for r in rr]):6.1f} "
                   f"{np.mean([r['rejected'] for r in rr]):5.0f}")
         print(f"{'ALL':24s} {np.mean([r['F'] for r in rows]):6.3f} "
               f"{np.mean([r['P'] for r in rows]):6.3f} {np.mean([r['R'] for r in rows]):6.3f} "

@@ -1022,9 +1022,10 @@ class _TemplateScan:
     second click's delay after its main click, as a fraction of the period
     before, is learnt from that group (median, when the interquartile range
     is 0.05 or less).  When no such group forms (second clicks too weak for
-    the frame detector), the cycles are folded at fixed counts of accepted
-    clicks (the 160th, then every 128th, at most 12 times) and the template
-    is made at the phase where their energy rises (:meth:`_fold_second`).
+    the frame detector), the cycles are folded at fixed places in the
+    stream (once the main template has scanned to 10 s, then every 5 s, at
+    most 12 times) and the template is made at the phase where their energy
+    rises (:meth:`_fold_second`).
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
@@ -1085,9 +1086,11 @@ class _TemplateScan:
         self.slots: list[list] = [[None, 0.0, None, 0, 1.0, None],
                                   [None, 0.0, None, 0, 1.0, None]]
         self.clicks: list[Click] = []
+        self._candidates: list[tuple[int, np.ndarray]] = []  # second-family examples to take
         # per click found: how well its template fits it (normalised
         # correlation, 0-1), to choose between two templates' finds of one click
         self.click_fit: list[float] = []
+        self.click_slot: list[int] = []  # which template found each click (0 main, 1 second)
         self.main_found: list[int] = []  # onsets (decimated) the main template found
         self.nfft = sp_fft.next_fast_len(self.C + self.E + self.E2 + self.L, real=True)
         f = np.arange(self.nfft // 2 + 1) * (fs_d / self.nfft)
@@ -1097,12 +1100,11 @@ class _TemplateScan:
         self._ibuf = np.zeros(self.nfft, dtype=np.complex64)  # (the inverse FFT's input)
         # second template by folding (see _fold_second): tried at fixed counts
         # of accepted clicks, so the result does not depend on block sizes
-        self.fold_every = 128
+        self.fold_every = round(5.0 * fs_d)  # decimated samples between folds
         self.fold_tries = 12
         self.fold_window_s = 28.0
-        self._next_fold = self.K + 128
+        self._next_fold = round(10.0 * fs_d)  # (at 10 s of stream, then every 5 s)
         self._folds = 0
-        self._n_accepted = 0
         self.folded = False  # the second template came from folding
         self._fold_sos = signal.butter(4, 500.0, "highpass", fs=fs_d, output="sos")
         top = 0.45 * fs_d
@@ -1124,13 +1126,6 @@ class _TemplateScan:
         main, second = self.slots
         if accepted:
             self.onsets.append(od)
-            self._n_accepted += 1
-            if (main[0] is not None and second[0] is None and self._n_accepted >= self._next_fold
-                    and self._folds < self.fold_tries):
-                self._next_fold = self._n_accepted + self.fold_every
-                self._folds += 1
-                if self._fold_second(od):
-                    self.examples, self.example_onsets = [], []
         elif main[0] is None:
             return
         if second[0] is not None:
@@ -1139,25 +1134,36 @@ class _TemplateScan:
         if a < 0 or a + self.L + 2 * self.A > self.buf.size:
             return
         ex = self.buf[a:a + self.L + 2 * self.A].astype(np.float64)
-        if main[0] is not None:
-            # a candidate for the second family: unlike the main template
-            e = ex - ex.mean()
-            c = np.correlate(e, main[2], "valid") / (np.sqrt(np.convolve(
-                e * e, np.ones(self.L), "valid")) + 1e-20)
-            if float(np.max(np.abs(c))) >= 0.55:
-                return
-        self.examples.append(ex)
-        self.example_onsets.append(od)
-        if main[0] is None and len(self.examples) >= self.K:
-            self._make_template(main)
-            self.examples, self.example_onsets = [], []
-        elif (main[0] is not None and len(self.examples) >= self.K // 2
-              and len(self.examples) % 8 == 0):  # (a new try every 8 examples)
-            if self._make_template(second):
+        if main[0] is None:
+            self.examples.append(ex)
+            self.example_onsets.append(od)
+            if len(self.examples) >= self.K:
+                self._make_template(main)
                 self.examples, self.example_onsets = [], []
-            elif len(self.examples) >= 2 * self.K:
-                self.examples = self.examples[self.K // 2:]
-                self.example_onsets = self.example_onsets[self.K // 2:]
+            return
+        # a candidate for the second family: unlike the main template (taken
+        # up in :meth:`advance`, in stream order with the folds)
+        e = ex - ex.mean()
+        c = np.correlate(e, main[2], "valid") / (np.sqrt(np.convolve(
+            e * e, np.ones(self.L), "valid")) + 1e-20)
+        if float(np.max(np.abs(c))) < 0.55:
+            self._candidates.append((od, ex))
+
+    def _take_candidates(self, upto: int) -> None:
+        """Second-family candidates before ``upto`` (decimated): a template try every 8."""
+        second = self.slots[1]
+        while self._candidates and self._candidates[0][0] < upto:
+            od, ex = self._candidates.pop(0)
+            if second[0] is not None:
+                continue
+            self.examples.append(ex)
+            self.example_onsets.append(od)
+            if len(self.examples) >= self.K // 2 and len(self.examples) % 8 == 0:
+                if self._make_template(second):
+                    self.examples, self.example_onsets = [], []
+                elif len(self.examples) >= 2 * self.K:
+                    self.examples = self.examples[self.K // 2:]
+                    self.example_onsets = self.example_onsets[self.K // 2:]
 
     def _make_template(self, slot: list) -> bool:
         A, L = self.A, self.L
@@ -1193,8 +1199,8 @@ class _TemplateScan:
             return False  # the main click again
         if slot is self.slots[1]:
             self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
-            if self.phase is None and self._folds == 0:
-                return False  # no place in the cycle: first let folding look for one
+            if self.phase is None and self._folds < 4:
+                return False  # no place in the cycle: first let folding look (to 25 s)
         self._install(slot, h)
         return True
 
@@ -1236,7 +1242,7 @@ class _TemplateScan:
         there when, in some band, one bin rises 1.15 times or more over the
         largest of the 2-5 bins before it, by 6 or more standard errors (the
         cycle-to-cycle scatter over the square root of the number of cycles),
-        and by twice as many standard errors as any rise more than 4 bins
+        and by three times as many standard errors as any rise more than 4 bins
         away; the band where it rises most is used.  (A room's echo of the
         main click folds, at a steady rate, into many rises of like size, the
         random fine structure of the reverberation; a second click is one
@@ -1261,16 +1267,21 @@ class _TemplateScan:
         * the phase lies within the bins that rose.
 
         Returns True when the second template and the second click's phase
-        were set.  ``upto`` is the latest accepted onset (decimated); only
-        audio before it is used, so the result does not depend on block sizes.
+        were set.  ``upto`` (decimated) is where the main template has
+        scanned to; only the clicks and audio before it are used, and folds
+        run at fixed places in the stream (every 5 s from 10 s, at most 12
+        times), so the result does not depend on block sizes.
         """
         fs = self.fs_d
         lo = max(self.b0 + self.E + self.L, upto - round(self.fold_window_s * fs))
         # every accepted click (in noise a main click's correlation with the
-        # template is too uncertain to sort them): the period test below drops
-        # the intervals a second click splits
-        mains = np.array(self.onsets[bisect.bisect_left(self.onsets, lo):
-                                     bisect.bisect_right(self.onsets, upto)], dtype=np.int64)
+        # template is too uncertain to sort them) and every click the main
+        # template found: the period test below drops the intervals a second
+        # click splits
+        mains = np.array(sorted(
+            self.onsets[bisect.bisect_left(self.onsets, lo):bisect.bisect_left(self.onsets, upto)]
+            + self.main_found[bisect.bisect_left(self.main_found, lo):
+                              bisect.bisect_left(self.main_found, upto)]), dtype=np.int64)
         self.fold_info = {"cycles": 0}
         if mains.size < 33:
             return False
@@ -1339,7 +1350,7 @@ class _TemplateScan:
             # reverberation); a second click is one rise well above the rest
             rest = np.abs(np.arange(k.size) - ib) > 4
             z_rest = float(z[rest].max()) if rest.any() else 0.0
-            if z[ib] >= 2.0 * max(z_rest, 1.0) and (best is None or z[ib] > best[0]):
+            if z[ib] >= 3.0 * max(z_rest, 1.0) and (best is None or z[ib] > best[0]):
                 best = (float(z[ib]), ib, float(ratio[ib]), z_rest)
         if best is None:
             return False
@@ -1537,8 +1548,14 @@ class _TemplateScan:
             if self.n < need or done_d < need:
                 return False
             # without its template, a chunk waits while the template may still
-            # form in time for it
-            return slot[0] is not None or done_d >= a + self.C + self.lookback
+            # form in time for it: the main one, until the accepted clicks are
+            # that far ahead; the second one (made as the main template scans
+            # on), until the main template has scanned that far ahead
+            if slot[0] is not None:
+                return True
+            if slot is self.slots[1] and self.slots[0][0] is not None:
+                return self.slots[0][3] >= a + self.C + self.lookback
+            return done_d >= a + self.C + self.lookback
 
         while True:
             # the earliest chunk first, so both templates scan a chunk in turn
@@ -1549,6 +1566,17 @@ class _TemplateScan:
             if slot[0] is not None:
                 self._scan(slot[3], next(i for i, sl in enumerate(self.slots) if sl is slot))
             slot[3] += self.C
+            # the second template, from examples and by folding, in stream
+            # order: once the main template has scanned to a place, every
+            # click before it is known (so block sizes do not matter)
+            if slot is self.slots[0] and slot[0] is not None:
+                self._take_candidates(slot[3])
+                if (self.slots[1][0] is None and self._folds < self.fold_tries
+                        and slot[3] >= self._next_fold):
+                    self._next_fold = slot[3] + self.fold_every
+                    self._folds += 1
+                    if self._fold_second(slot[3]):
+                        self.examples, self.example_onsets = [], []
         first = min(s[3] for s in self.slots)
         # (and 1 s more: the main clicks before a chunk place its second clicks)
         keep = first - self.E - self.P - self.C
@@ -1641,6 +1669,7 @@ class _TemplateScan:
                       ).astype(np.float64)
             fit = env[o] / np.sqrt(np.maximum(np.einsum("ij,ij->i", w, w), 1e-30))
             self.click_fit.extend(np.minimum(fit, 1.0).tolist())
+            self.click_slot.extend([si] * len(order))
             if si == 0:
                 self.main_found.extend((base + o).tolist())
         for i, ring in zip(order, rings):
@@ -1988,6 +2017,9 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     into two families along the detrended features and the labels smoothed
     by a two-state Viterbi pass that expects alternation but lets it restart
     after a gap (a missed click), so one lost click does not flip the rest.
+    Where the two families plainly ring apart, the timbre sets the labels
+    (:func:`_by_ring`), and a "main" click where the second click belongs
+    becomes a second click (:func:`_second_at_its_place`).
     When the second clicks are found only now and then there is no
     alternation to see; two more tests then also decide "two": a clear
     two-group split in level and timbre (:func:`_bimodal`: Lloyd's 2-means,
@@ -2009,6 +2041,14 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     (clicks, clicks_per_cycle)
         New Click objects with ``kind`` and ``cycle`` set, and the decision.
     """
+    return _assign_kinds(clicks, clicks_per_cycle=clicks_per_cycle, hints=None)
+
+
+def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
+                  hints: np.ndarray | None) -> tuple[list[Click], int]:
+    """:func:`assign_kinds`, with ``hints``: per click 0 or 1 where the matched
+    filter's template tells the kind, -1 elsewhere (applied after the labels
+    by timbre, before the relabelling by place)."""
     if clicks_per_cycle not in (None, 1, 2):
         raise UsageError(f"clicks_per_cycle={clicks_per_cycle}: must be 1 or 2")
     n = len(clicks)
@@ -2023,8 +2063,12 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     phase, short = (_second_click_phase(times, feats[:, 0]) if n >= 12
                     else (None, np.zeros(n, bool)))
     if decided is None:
+        # (or many clicks found by a second template that has its place in
+        # the cycle: in deep noise the first stage takes too few of either
+        # family for the other tests)
+        by_second = int(np.sum(hints == 1)) if hints is not None else 0
         decided = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)
-                        or phase is not None) else 1
+                        or phase is not None or by_second >= max(8, 0.15 * n)) else 1
     if decided == 1 or n < 2:
         for i, c in enumerate(out):
             c.kind = 0
@@ -2038,7 +2082,10 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
         labels = short.astype(np.int64)  # a click a consistent fraction of a period late
     else:
         labels = _two_families(out, feats)
-    labels = _second_at_its_place(times, np.asarray(labels, dtype=np.int64))
+    labels = _by_ring(out, np.asarray(labels, dtype=np.int64))
+    if hints is not None:
+        labels = np.where(hints >= 0, hints, labels)
+    labels = _second_at_its_place(times, labels)
     cycle = -1
     for c, lab in zip(out, labels):
         c.kind = int(lab)
@@ -2048,6 +2095,51 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
         else:
             c.cycle = cycle if cycle >= 0 else None
     return out, 2
+
+
+def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
+    """Label by timbre when the two families plainly ring apart.
+
+    The log ring frequencies are split in two by Lloyd's 2-means (started
+    from their 10th and 90th percentiles).  When the two groups are 15 % or
+    more apart, each holds 15 % or more of the rings and each is tight (the
+    median absolute deviation of its log ring under 3 %), the groups are the
+    families: the one with the louder median level is the main click, and
+    each click whose ring was measured (it has a decay time) takes its
+    group's kind.  A click the matched filter found keeps its label (its
+    ring was looked for near its template's, which tells nothing new;
+    :func:`_assign_kinds` lets the template tell its kind).  (The alternation and level tests
+    can lose their phase where the rate changes fast, at the start and end of
+    a run; the timbre does not change.)  Otherwise the labels are returned
+    unchanged.
+    """
+    lab = labels.copy()
+    lr = np.array([math.log(c.ring_hz) if c.ring_hz else np.nan for c in clicks])
+    have = np.flatnonzero(np.isfinite(lr))
+    if have.size < 16:
+        return lab
+    v = lr[have]
+    ca, cb = np.percentile(v, [10, 90])
+    g = v > 0.5 * (ca + cb)
+    for _ in range(20):
+        if g.all() or not g.any():
+            return lab
+        ca, cb = float(np.mean(v[~g])), float(np.mean(v[g]))
+        new = v > 0.5 * (ca + cb)
+        if np.array_equal(new, g):
+            break
+        g = new
+    share = min(g.mean(), 1.0 - g.mean())
+    spread = max(float(np.median(np.abs(v[g] - np.median(v[g])))),
+                 float(np.median(np.abs(v[~g] - np.median(v[~g])))))
+    if cb - ca < math.log(1.15) or share < 0.15 or spread >= 0.03:
+        return lab
+    lv = np.array([clicks[i].level_dbfs for i in have])
+    high_is_main = np.median(lv[g]) > np.median(lv[~g])
+    # (relabelled: the clicks whose ring was measured, i.e. with a decay time)
+    measured = np.array([clicks[i].decay_s is not None for i in have])
+    lab[have[measured]] = np.where(g == high_is_main, 0, 1)[measured]
+    return lab
 
 
 def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
@@ -2305,6 +2397,7 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
             gone = {c.time_s for c in promoted}
             rejected_times = [t for t in rejected_times if t not in gone]
             rejected -= len(promoted)
+    found_by: dict[int, int] = {}
     if atypical and det._mf is not None and det._mf.clicks and len(kept) >= 8:
         # the matched-filter pass: clicks like the recording's own, not already found
         times = np.array([c.time_s for c in kept])
@@ -2316,14 +2409,16 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         gaps = np.diff(times[-9:])
         last = times[-1] + (float(np.median(gaps)) if gaps.size else 0.0)
         fits: dict[int, float] = {}
-        for c, fit in zip(det._mf.clicks, det._mf.click_fit):  # both templates' finds
-            if c.time_s > last:
+        slots: dict[int, int] = {}
+        for c, fit, si in zip(det._mf.clicks, det._mf.click_fit, det._mf.click_slot):
+            if c.time_s > last:  # (both templates' finds)
                 continue
             j = int(np.searchsorted(times, c.time_s))
             if any(abs(times[m] - c.time_s) < 0.010 for m in (j - 1, j) if 0 <= m < times.size):
                 continue
             extra.append(c)
             fits[id(c)] = fit
+            slots[id(c)] = si
         extra.sort(key=lambda c: c.sample)
         merged: list[Click] = []
         for c in extra:  # of two templates' finds of one click, keep the better fit
@@ -2332,10 +2427,15 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
                     merged[-1] = c
                 continue
             merged.append(c)
+        # the template that found a click tells its kind, once the second
+        # template has its place in the cycle (then it is the second family)
+        if det._mf.phase is not None:
+            found_by = {c.sample: slots[id(c)] for c in merged}
         extra = [copy.copy(c) for c in merged]
         if extra:
             kept = sorted(kept + extra, key=lambda c: c.sample)
-    labelled, cpc = assign_kinds(kept, clicks_per_cycle=clicks_per_cycle)
+    hints = np.array([found_by.get(c.sample, -1) for c in kept], dtype=np.int64)
+    labelled, cpc = _assign_kinds(kept, clicks_per_cycle=clicks_per_cycle, hints=hints)
     rings = [c.ring_hz for c in labelled if c.kind == 0 and c.ring_hz]
     ring = float(np.median(rings)) if rings else None
     all_rings = [c.ring_hz for c in labelled if c.ring_hz]

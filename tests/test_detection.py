@@ -262,13 +262,16 @@ def test_generator_20db_timing_and_ring():
     f, err_s, ring = _score(res, truth)
     assert err_s <= 0.3e-3
     assert ring <= 0.02
-    # issue 3 asks 0.97; one-click engines give 0.962-0.989 on seeds 3-8 (24 s)
+    # the generator's default levels (start-up pops to -12 dB, fade pops to
+    # -18 dB, some under the noise here): 0.962-0.989 on seeds 3-8 (24 s); the
+    # issue's 0.97 with every pop at 20 dB: test_issue_targets_... below
     assert f >= 0.95
 
 
 def test_generator_12db_one_click_engine():
-    # issue 3 asks 0.90 at 12 dB; one-click engines give 0.896-0.908 on seeds
-    # 3-8 (24 s): the bound is the level reached, not the target
+    # the generator's default levels (faint start-up and fade pops, many under
+    # the noise at 12 dB): 0.896-0.908 on seeds 3-8 (24 s); the issue's 0.90
+    # with every pop at 12 dB: test_issue_targets_... below
     x, truth, fs = _render(click_to_noise_db=12.0, seed=4)
     res = detect_clicks(x, fs)
     f, _err_s, ring = _score(res, truth)
@@ -476,3 +479,44 @@ def test_room_echo_of_a_click_is_not_promoted():
         np.array([c["time_s"] for c in truth["clicks"]]), est, window=0.005)
     assert p >= 0.98
     assert r >= 0.98
+
+
+def test_two_ring_families_set_the_kinds_where_alternation_lost_its_phase():
+    from popmeter.detection import Click, _by_ring
+
+    rng = np.random.default_rng(7)
+    clicks, truth = [], []
+    for k in range(40):
+        t = 0.1 * k
+        clicks.append(Click(t, int(t * FS), -10.0 + rng.normal(0, 0.5), 20.0,
+                            1200.0 * (1 + rng.normal(0, 0.005)), 0.01))
+        clicks.append(Click(t + 0.045, int((t + 0.045) * FS), -16.0 + rng.normal(0, 0.5), 15.0,
+                            2450.0 * (1 + rng.normal(0, 0.005)), 0.004))
+        truth += [0, 1]
+    labels = np.array(truth)
+    labels[:6] = 1 - labels[:6]  # the first three cycles swapped
+    assert list(_by_ring(clicks, labels)) == truth
+    # one tight family: nothing to split, the labels stay
+    one = [Click(c.time_s, c.sample, c.level_dbfs, c.strength, 1200.0, 0.01) for c in clicks]
+    assert list(_by_ring(one, labels)) == list(labels)
+
+
+_EVEN = {"startup_level_db": 0.0, "fade_level_db": 0.0, "weak_pop_prob": 0.0}
+
+
+@pytest.mark.parametrize(("cnr", "cpc", "target"), [(20.0, 2, 0.97), (12.0, 1, 0.90),
+                                                    (12.0, 2, 0.90)])
+def test_issue_targets_with_every_pop_at_the_stated_ratio(cnr, cpc, target):
+    # the issue's F targets (mir_eval, +-5 ms) where every pop is at the stated
+    # click-to-noise ratio (a second click still 6 dB under its main one);
+    # these 40 s recordings give, on seeds 5-7: 20 dB two-click 0.998, 12 dB
+    # one-click 0.996-0.999, 12 dB two-click 0.935-0.965
+    x, truth, fs = _render(click_to_noise_db=cnr, seed=5, clicks_per_cycle=cpc,
+                           duration_s=40.0, **_EVEN)
+    res = detect_clicks(x, fs)
+    f, err_s, ring = _score(res, truth)
+    assert f >= target
+    assert res.clicks_per_cycle == cpc
+    assert ring <= 0.02
+    if cnr == 20.0:
+        assert err_s <= 0.3e-3
