@@ -1844,22 +1844,23 @@ def _percentile(x: np.ndarray, q: float) -> np.floating:
     return b - d * (1 - t) if t >= 0.5 else a + d * t
 
 
-def _local_periods(gaps: np.ndarray) -> np.ndarray:
-    """Per gap, the median of the 9 gaps around it leaving out those under 0.75 of their upper quartile.
+def _local_periods(gaps: np.ndarray, *, keep: float = 0.75) -> np.ndarray:
+    """Per gap, the median of the 9 gaps around it leaving out those under ``keep`` x their upper quartile.
 
-    The same values as ``np.nanmedian(np.where(w >= 0.75 * uq, w, nan), axis=1)``
+    The same values as ``np.nanmedian(np.where(w >= keep * uq, w, nan), axis=1)``
     with ``w`` the 9-wide windows of the edge-padded gaps and ``uq`` their
     ``np.percentile(w, 75, axis=1)`` (numpy's linear method lands exactly on
     the 7th of the 9 sorted values), from one sort of the windows: the gaps
     kept are the top of each sorted row, and their median is its middle (the
     mean of the two middle values for an even count, as numpy takes it).
-    About 20 times faster than the numpy formulation on a chunk's gaps.
+    ``keep`` in (0, 1] (gaps are not negative).  About 8 times faster than
+    the numpy formulation on a chunk's 25 gaps.
     """
     g = np.asarray(gaps, dtype=np.float64)
     if g.size == 0:
         return np.zeros(0)
     s = np.sort(np.lib.stride_tricks.sliding_window_view(np.pad(g, 4, mode="edge"), 9), axis=1)
-    first = np.count_nonzero(s < 0.75 * s[:, 6:7], axis=1)  # the kept ones are s[first:]
+    first = np.count_nonzero(s < keep * s[:, 6:7], axis=1)  # the kept ones are s[first:]
     m = 9 - first
     r = np.arange(s.shape[0])
     a, b = s[r, first + (m - 1) // 2], s[r, first + m // 2]

@@ -59,9 +59,11 @@ def test_local_periods_equals_numpy():
                 gaps = np.round(gaps, -2)  # ties
             win9 = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, 4, mode="edge"), 9)
             uq = np.percentile(win9, 75, axis=1)
-            expected = np.nanmedian(np.where(win9 >= 0.75 * uq[:, None], win9, np.nan), axis=1)
-            got = _local_periods(gaps)
-            assert np.array_equal(got, expected)
+            for keep in (0.75, 0.7):
+                expected = np.nanmedian(np.where(win9 >= keep * uq[:, None], win9, np.nan),
+                                        axis=1)
+                got = _local_periods(gaps, keep=keep)
+                assert np.array_equal(got, expected)
     assert _local_periods(np.zeros(0)).size == 0
 
 
