@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from popmeter.detection import _cover, _percentile, _rows
+from popmeter.detection import _cover, _local_periods, _percentile, _row_dots, _rows
 
 
 @pytest.mark.parametrize("q", [5, 10, 25, 50, 75, 90, 95])
@@ -43,3 +43,37 @@ def test_rows_equals_fancy_indexing():
     pick = np.array([4, 1, 1])
     ref = x[pick[:, None], starts[:3, None] + np.arange(10)[None, :]]
     assert np.array_equal(_rows(x, starts[:3], 10, pick), ref)
+
+
+def test_local_periods_equals_numpy():
+    # reference: numpy.percentile (linear method) and numpy.nanmedian over the
+    # 9-wide windows of the edge-padded gaps, the formulation it replaces
+    rng = np.random.default_rng(10)
+    for n in list(range(1, 14)) + [40, 120]:
+        for _ in range(30):
+            gaps = rng.integers(1, 4000, n).astype(np.float64)
+            if rng.integers(2) == 0:  # two-click engine: short and long gaps, some merged
+                gaps = np.where(rng.random(n) < 0.5, 0.3, 0.7) * 2400.0 + rng.normal(0, 20, n)
+                gaps[rng.random(n) < 0.1] *= 2.0
+            if rng.integers(3) == 0:
+                gaps = np.round(gaps, -2)  # ties
+            win9 = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, 4, mode="edge"), 9)
+            uq = np.percentile(win9, 75, axis=1)
+            for keep in (0.75, 0.7):
+                expected = np.nanmedian(np.where(win9 >= keep * uq[:, None], win9, np.nan),
+                                        axis=1)
+                got = _local_periods(gaps, keep=keep)
+                assert np.array_equal(got, expected)
+    assert _local_periods(np.zeros(0)).size == 0
+
+
+def test_row_dots_equals_matmul():
+    # reference: numpy.matmul in float64 (float32 sums: a few ulps apart)
+    rng = np.random.default_rng(11)
+    for k in (0, 1, 7, 40):
+        a = rng.standard_normal((k, 480)).astype(np.float32)
+        b = rng.standard_normal((130, 480)).astype(np.float32)
+        got = _row_dots(a, b)
+        assert got.shape == (k, 130)
+        ref = a.astype(np.float64) @ b.astype(np.float64).T
+        assert np.allclose(got, ref, rtol=0, atol=1e-4 * max(1.0, float(np.abs(ref).max(initial=0))))
