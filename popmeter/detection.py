@@ -1744,10 +1744,7 @@ class _TemplateScan:
         if ons.size < 3:
             return out
         gaps = np.diff(ons).astype(np.float64)
-        win9 = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, 4, mode="edge"), 9)
-        uq = np.percentile(win9, 75, axis=1)
-        whole = np.where(win9 >= 0.75 * uq[:, None], win9, np.nan)
-        period = np.nanmedian(whole, axis=1)  # around each gap (the upper quartile is kept)
+        period = _local_periods(gaps)  # around each gap (the upper quartile is kept)
         m0 = ons[1:]  # the click after each gap
         ok = period <= 0.5 * self.fs_d
         if self.folded:
@@ -2185,9 +2182,7 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
     gaps = np.diff(times[mains])
     # the local period at each main click: the median of the 9 main-to-main
     # intervals around it, leaving out those under 0.7 of their upper quartile
-    win = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, 4, mode="edge"), 9)
-    uq = np.percentile(win, 75, axis=1)
-    local = np.nanmedian(np.where(win >= 0.7 * uq[:, None], win, np.nan), axis=1)
+    local = _local_periods(gaps, keep=0.7)
     period = np.append(local, local[-1])  # at mains[k]: the interval after it
     r = []
     for i in np.flatnonzero(lab == 1):
