@@ -27,7 +27,9 @@ reading, detection, timeline, summary) and the detection alone
 matched-filter pass) on a 48 kHz mono WAV file, side by side with librosa.load +
 librosa.onset.onset_detect (default settings) on the same file; best of three
 after a warm-up run, in one process, with OMP/OpenBLAS/MKL/numba thread pools
-set to one thread (one core).
+set to one thread (one core); and analyze_file once more in a fresh process
+with the libraries' default thread pools, as a user running ``popmeter
+analyze`` gets it.
 
 Memory: a 2-hour recording built on disk by tiling a generated minute in blocks,
 analysed in a subprocess; peak RSS from resource.getrusage.
@@ -39,8 +41,9 @@ import os
 
 # one core for every library (set before numpy, scipy and librosa load their
 # thread pools): the speed figures are single-core figures
-for _var in ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
-             "NUMBA_NUM_THREADS", "VECLIB_MAXIMUM_THREADS"):
+_THREAD_VARS = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                "NUMBA_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
+for _var in _THREAD_VARS:
     os.environ[_var] = "1"
 
 import argparse
@@ -224,7 +227,23 @@ def speed(tmp: str, minutes: float) -> None:
     print(f"  the same without the matched-filter pass     : {c:7.3f} s  = {dur / c:7.0f}x real time")
     print(f"librosa.load + librosa.onset.onset_detect      : {b:7.3f} s  = {dur / b:7.0f}x real time")
     print(f"ratio analyze / librosa time                   : {w / b:7.2f}")
+    # what a user running `popmeter analyze` gets: the libraries' own thread
+    # pools (no forced single thread), in a fresh process, best of 3
+    env = {k: v for k, v in os.environ.items() if k not in _THREAD_VARS}
+    out = subprocess.run([sys.executable, "-c", _DEFAULT_THREADS_CHILD, path], env=env,
+                         capture_output=True, text=True, check=True).stdout.split()
+    d = float(out[0])
+    print(f"analyze_file, default thread pools (fresh)     : {d:7.3f} s  = {dur / d:7.0f}x real time")
 
+
+_DEFAULT_THREADS_CHILD = """
+import sys, time
+from popmeter.analysis import analyze_file
+analyze_file(sys.argv[1])
+best = min((lambda t0: (analyze_file(sys.argv[1]), time.perf_counter() - t0)[1])(
+    time.perf_counter()) for _ in range(3))
+print(best)
+"""
 
 _MEM_CHILD = """
 import resource, sys, time
