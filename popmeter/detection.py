@@ -1106,6 +1106,7 @@ class _TemplateScan:
         self.fold_window_s = 28.0
         self._next_fold = round(10.0 * fs_d)  # (at 10 s of stream, then every 5 s)
         self._folds = 0
+        self.fold_info: dict = {}  # what the last fold saw (for diagnostics)
         self.folded = False  # the second template came from folding
         self._fold_sos = signal.butter(4, 500.0, "highpass", fs=fs_d, output="sos")
         top = 0.45 * fs_d
@@ -1347,7 +1348,7 @@ class _TemplateScan:
         # the whole band, and octaves of it: in a reverberant room or deep in
         # noise the second click may stand out only where it rings and the
         # main click's echo does not
-        best = None
+        top = None
         z_top = 0.0
         for e_band in self._band_e or []:
             z, ratio = fold(np.concatenate([[0.0], np.cumsum(e_band[a0:a1], dtype=np.float64)]),
@@ -1362,17 +1363,17 @@ class _TemplateScan:
             # reverberation); a second click is one rise well above the rest
             rest = np.abs(np.arange(k.size) - ib) > 4
             z_rest = float(z[rest].max()) if rest.any() else 0.0
-            if z[ib] >= 3.0 * max(z_rest, 1.0) and (best is None or z[ib] > best[0]):
-                best = (float(z[ib]), ib, float(ratio[ib]), z_rest)
+            if z[ib] >= 3.0 * max(z_rest, 1.0) and (top is None or z[ib] > top[0]):
+                top = (float(z[ib]), ib, float(ratio[ib]), z_rest)
         self.fold_info["z_top"] = z_top
-        if best is None:
+        if top is None:
             if n >= 200 and z_top < 3.0:
                 # 200 cycles and not even a hint of a rise anywhere: a
                 # one-click engine; no more folds (they cost time)
                 self._folds = self.fold_tries
             return False
-        self.fold_info.update(z=best[0], ratio=best[2], z_rest=best[3])
-        ib = best[1]
+        self.fold_info.update(z=top[0], ratio=top[2], z_rest=top[3])
+        ib = top[1]
         kb = int(k[ib])
         # the rise lies within the bin before the one that rose most, or in it
         # (the delay follows the local period, the median of 9, rather than
