@@ -2455,6 +2455,14 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
             kept = sorted(kept + extra, key=lambda c: c.sample)
     hints = np.array([found_by.get(c.sample, -1) for c in kept], dtype=np.int64)
     labelled, cpc = _assign_kinds(kept, clicks_per_cycle=clicks_per_cycle, hints=hints)
+    if clicks_per_cycle is not None and len(kept) >= 12:
+        # a forced decision the clicks contradict: say so
+        _, seen = _assign_kinds(kept, clicks_per_cycle=None, hints=hints)
+        if seen != clicks_per_cycle:
+            looks = ("two families of clicks alternating in time" if seen == 2
+                     else "one family of clicks")
+            warnings.append(f"clicks per cycle forced to {clicks_per_cycle}, but the clicks look "
+                            f"like {seen} per cycle ({looks}); rates and phases may be wrong")
     rings = [c.ring_hz for c in labelled if c.kind == 0 and c.ring_hz]
     ring = float(np.median(rings)) if rings else None
     all_rings = [c.ring_hz for c in labelled if c.ring_hz]

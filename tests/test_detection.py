@@ -520,3 +520,15 @@ def test_issue_targets_with_every_pop_at_the_stated_ratio(cnr, cpc, target):
     assert ring <= 0.02
     if cnr == 20.0:
         assert err_s <= 0.3e-3
+
+
+def test_a_forced_clicks_per_cycle_the_clicks_contradict_gives_a_warning():
+    x, _truth, fs = _render(click_to_noise_db=30.0, seed=6, clicks_per_cycle=2)
+    forced = detect_clicks(x, fs, clicks_per_cycle=1)
+    assert forced.clicks_per_cycle == 1
+    assert any("forced to 1" in w and "like 2 per cycle" in w for w in forced.warnings)
+    agreed = detect_clicks(x, fs, clicks_per_cycle=2)
+    assert not any("forced to" in w for w in agreed.warnings)
+    x1, _truth, fs = _render(click_to_noise_db=30.0, seed=6, clicks_per_cycle=1)
+    forced2 = detect_clicks(x1, fs, clicks_per_cycle=2)
+    assert any("forced to 2" in w and "like 1 per cycle" in w for w in forced2.warnings)
