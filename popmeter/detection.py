@@ -786,7 +786,7 @@ class ClickDetector:
         x, x0 = (self._y if high_passed else self._x), self._x0
         rel = starts - x0
         if rel.size and rel.min() >= 0 and rel.max() + length <= x.size:  # (the usual case)
-            return _rows(x[None, :], rel, length, np.zeros(rel.size, dtype=np.int64))
+            return _rows(x, rel, length)
         out = np.zeros((len(starts), length), dtype=np.float32)
         for i, st in enumerate(rel.tolist()):
             a, b = max(st, 0), min(st + length, x.size)
@@ -1099,8 +1099,8 @@ class _TemplateScan:
         self._spec_key: int | None = None  # chunk whose spectrum is in _spec
         self._spec = np.zeros(0, dtype=np.complex64)
         self._ibuf = np.zeros(self.nfft, dtype=np.complex64)  # (the inverse FFT's input)
-        # second template by folding (see _fold_second): tried at fixed counts
-        # of accepted clicks, so the result does not depend on block sizes
+        # second template by folding (see _fold_second): tried at fixed places
+        # in the stream, so the result does not depend on block sizes
         self.fold_every = round(5.0 * fs_d)  # decimated samples between folds
         self.fold_tries = 12
         self.fold_window_s = 28.0
@@ -1289,10 +1289,7 @@ class _TemplateScan:
         # template is too uncertain to sort them) and every click the main
         # template found: the period test below drops the intervals a second
         # click splits
-        mains = np.array(sorted(
-            self.onsets[bisect.bisect_left(self.onsets, lo):bisect.bisect_left(self.onsets, upto)]
-            + self.main_found[bisect.bisect_left(self.main_found, lo):
-                              bisect.bisect_left(self.main_found, upto)]), dtype=np.int64)
+        mains = self._all_clicks(lo, upto, upto)
         self.fold_info = {"cycles": 0}
         if mains.size < 33:
             return False
@@ -1302,8 +1299,7 @@ class _TemplateScan:
         # fold would only fold half cycles
         if _alternation(np.log(per)[:, None]) < -0.5:
             return False
-        med = np.median(np.lib.stride_tricks.sliding_window_view(np.pad(per, 4, mode="edge"), 9),
-                        axis=1)
+        med = _median9(per)
         # whole cycles: an interval of about one local period, or of two with
         # the main click between them missed (split at its middle); an
         # interval a second click splits is left out
@@ -1319,9 +1315,7 @@ class _TemplateScan:
         self.fold_info["cycles"] = n
         if n < 64:
             return False
-        # the local period of each cycle: the median of the 9 around
-        loc_t = np.median(np.lib.stride_tricks.sliding_window_view(
-            np.pad(T, 4, mode="edge"), 9), axis=1)
+        loc_t = _median9(T)  # the local period of each cycle
         a0 = int(st[0]) - self.b0
         a1 = int(st[-1] + max(T[-1], loc_t[-1])) - self.b0 + 1
         # (to 0.8 only: a cycle kept may be 15 % shorter than the local
@@ -1469,6 +1463,13 @@ class _TemplateScan:
         self._install(self.slots[1], h)
         return True
 
+    def _all_clicks(self, lo: int, hi: int, hi_found: int) -> np.ndarray:
+        """Accepted onsets in [lo, hi) and the main template's finds in [lo, hi_found), sorted."""
+        on, mf = self.onsets, self.main_found
+        return np.array(sorted(on[bisect.bisect_left(on, lo):bisect.bisect_left(on, hi)]
+                               + mf[bisect.bisect_left(mf, lo):bisect.bisect_left(mf, hi_found)]),
+                        dtype=np.int64)
+
     def _mains(self, lo: int, hi: int) -> np.ndarray:
         """Accepted onsets in [lo, hi) (decimated) that match the main template."""
         i0, i1 = bisect.bisect_left(self.onsets, lo), bisect.bisect_left(self.onsets, hi)
@@ -1508,11 +1509,11 @@ class _TemplateScan:
             out[i] = m
         return out
 
-    def _learn_phase(self, onsets: list[int], *, max_iqr: float = 0.05) -> float | None:
+    def _learn_phase(self, onsets: list[int]) -> float | None:
         """Delay of the second clicks after the main click / the period before it.
 
         From the second family's examples and the main clicks before them; None
-        unless 5 or more agree within an interquartile range of ``max_iqr``.
+        unless 5 or more agree within an interquartile range of 0.05.
         """
         if not onsets:
             return None
@@ -1527,7 +1528,7 @@ class _TemplateScan:
         if len(r) < 5:
             return None
         q1, q2, q3 = np.percentile(r, [25, 50, 75])
-        if q3 - q1 > max_iqr or not 0.1 <= q2 <= 0.9:
+        if q3 - q1 > 0.05 or not 0.1 <= q2 <= 0.9:
             return None
         return float(q2)
 
@@ -1673,8 +1674,10 @@ class _TemplateScan:
             k = np.minimum(np.searchsorted(on, c - r_near), on.size - 1)
             c = c[~((on[k] >= c - r_near) & (on[k] <= c + r_near))]
         # the envelope over its noise level, at the peaks only
-        lvl_c = lvl[np.minimum(c // g, lvl.size - 1)]
-        c = c[env[c] / np.maximum(lvl_c, 1e-30) >= self.threshold]
+        def level_at(i: np.ndarray | int) -> np.ndarray:
+            return lvl[np.minimum(i // g, lvl.size - 1)]  # (the last bin's past the end)
+
+        c = c[env[c] / np.maximum(level_at(c), 1e-30) >= self.threshold]
         last = n_out - 1  # (indices past the end clipped: env >= 0 and the end is in the window)
         c = c[base + c - l1 >= 0]  # the stream's start is no reference
         c = c[env[c] > env[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)]
@@ -1688,8 +1691,7 @@ class _TemplateScan:
         rings = self._rings([base + i - self.b0 for i in order], si)
         if order:
             o = np.array(order)
-            w = _rows(seg[None, :], o, self.L, np.zeros(o.size, dtype=np.int64)
-                      ).astype(np.float64)
+            w = _rows(seg, o, self.L).astype(np.float64)
             fit = env[o] / np.sqrt(np.maximum(np.einsum("ij,ij->i", w, w), 1e-30))
             self.click_fit.extend(np.minimum(fit, 1.0).tolist())
             self.click_slot.extend([si] * len(order))
@@ -1708,8 +1710,7 @@ class _TemplateScan:
             self.clicks.append(Click(time_s=onset_in / self.fs_in, sample=onset_in,
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
                                      strength=round(20 * math.log10(
-                                         float(env[i] / np.maximum(
-                                             lvl[min(i // g, lvl.size - 1)], 1e-30))), 3),
+                                         float(env[i] / np.maximum(level_at(i), 1e-30))), 3),
                                      ring_hz=ring, decay_s=None))
 
     def _expected(self, base: int, n_out: int, env: np.ndarray, score: np.ndarray,
@@ -1732,14 +1733,9 @@ class _TemplateScan:
         out: set[int] = set()
         r1, r2 = round(0.002 * self.fs_d), round(0.004 * self.fs_d)
         if self.folded:
-            lo = base - round(self.fs_d)
-            acc = self.onsets[bisect.bisect_left(self.onsets, lo):
-                              bisect.bisect_left(self.onsets, base + n_out)]
-            # (and the main clicks the main template found, up to this chunk's
-            # end: it scans each chunk before the second template does)
-            mf = self.main_found[bisect.bisect_left(self.main_found, lo):
-                                 bisect.bisect_left(self.main_found, base + self.E + self.C)]
-            ons = np.array(sorted(acc + mf), dtype=np.int64)
+            # (the main template's finds up to this chunk's end: it scans each
+            # chunk before the second template does)
+            ons = self._all_clicks(base - round(self.fs_d), base + n_out, base + self.E + self.C)
         else:
             ons = self._mains(base - round(self.fs_d), base + n_out)
         if ons.size < 3:
@@ -1752,8 +1748,9 @@ class _TemplateScan:
             # not itself a second click: one that follows its click at the
             # phase and is followed by the next at the rest of the period
             after = np.append(gaps[1:] / period[1:], np.nan)
-            ok &= ~((np.abs(gaps / period - self.phase) <= 0.07)
-                    & ~(np.abs(after - (1.0 - self.phase)) > 0.07))
+            at_phase = np.abs(gaps / period - self.phase) <= 0.07
+            followed = np.isnan(after) | (np.abs(after - (1.0 - self.phase)) <= 0.07)
+            ok &= ~(at_phase & followed)
         delay = self.phase * period[ok]
         pred = m0[ok] + np.round(delay).astype(np.int64) - base
         half = np.round(0.001 * self.fs_d + 0.03 * delay).astype(np.int64)
@@ -1793,7 +1790,7 @@ class _TemplateScan:
             # (rows: the real parts, then the imaginary parts)
             slot[5] = (grid, np.concatenate([basis.real, basis.imag]).astype(np.float32))
         grid, basis = slot[5]
-        tails = _rows(self.buf[None, :], st[ok], m, np.zeros(ok.size, dtype=np.int64))
+        tails = _rows(self.buf, st[ok], m)
         prod = _row_dots(tails, basis)
         ng = grid.size
         db = 20 * np.log10(np.hypot(prod[:, :ng], prod[:, ng:]) + 1e-30)
@@ -1813,8 +1810,11 @@ def _rows(x: np.ndarray, starts: np.ndarray, length: int,
           rows: np.ndarray | None = None) -> np.ndarray:
     """Row i of the result is x[rows[i], starts[i]:starts[i] + length] (a copy).
 
-    ``rows`` defaults to every row of x in order.
+    ``rows`` defaults to every row of x in order; a 1-D x gives
+    x[starts[i]:starts[i] + length].
     """
+    if x.ndim == 1:
+        x, rows = x[None, :], np.zeros(len(starts), dtype=np.int64)
     # (the strided view of every window, as sliding_window_view makes it, without its checks)
     view = np.lib.stride_tricks.as_strided(
         x, shape=(x.shape[0], x.shape[1] - length + 1, length),
@@ -1862,6 +1862,12 @@ def _percentile(x: np.ndarray, q: float) -> np.floating:
     a, b = part[lo], part[hi]
     d = b - a
     return b - d * (1 - t) if t >= 0.5 else a + d * t
+
+
+def _median9(x: np.ndarray) -> np.ndarray:
+    """Per element, the median of the 9 around it (the ends padded with the end values)."""
+    return np.median(np.lib.stride_tricks.sliding_window_view(np.pad(x, 4, mode="edge"), 9),
+                     axis=1)
 
 
 def _local_periods(gaps: np.ndarray, *, keep: float = 0.75) -> np.ndarray:
@@ -2062,39 +2068,40 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     (clicks, clicks_per_cycle)
         New Click objects with ``kind`` and ``cycle`` set, and the decision.
     """
-    return _assign_kinds(clicks, clicks_per_cycle=clicks_per_cycle, hints=None)
+    out, cpc, _seen = _assign_kinds(clicks, clicks_per_cycle=clicks_per_cycle, hints=None)
+    return out, cpc
 
 
 def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
-                  hints: np.ndarray | None) -> tuple[list[Click], int]:
+                  hints: np.ndarray | None) -> tuple[list[Click], int, int]:
     """:func:`assign_kinds`, with ``hints``: per click 0 or 1 where the matched
     filter's template tells the kind, -1 elsewhere (applied after the labels
-    by timbre, before the relabelling by place)."""
+    by timbre, before the relabelling by place).  Also returns the decision
+    the clicks themselves make (the same as the one used unless forced)."""
     if clicks_per_cycle not in (None, 1, 2):
         raise UsageError(f"clicks_per_cycle={clicks_per_cycle}: must be 1 or 2")
     n = len(clicks)
     out = [copy.copy(c) for c in clicks]
     if n == 0:
-        return out, int(clicks_per_cycle or 1)
+        return out, int(clicks_per_cycle or 1), 1
     feats = _kind_features(out)
-    decided = clicks_per_cycle
     alt = _alternation(feats) if n >= 12 else 0.0
     sep, share, cl_labels = _bimodal(feats) if n >= 12 else (0.0, 0.0, np.zeros(n, int))
     times = np.array([c.time_s for c in out])
     phase, short = (_second_click_phase(times, feats[:, 0]) if n >= 12
                     else (None, np.zeros(n, bool)))
-    if decided is None:
-        # (or many clicks found by a second template that has its place in
-        # the cycle: in deep noise the first stage takes too few of either
-        # family for the other tests)
-        by_second = int(np.sum(hints == 1)) if hints is not None else 0
-        decided = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)
-                        or phase is not None or by_second >= max(8, 0.10 * n)) else 1
+    # (or many clicks found by a second template that has its place in the
+    # cycle: in deep noise the first stage takes too few of either family for
+    # the other tests)
+    by_second = int(np.sum(hints == 1)) if hints is not None else 0
+    seen = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)
+                 or phase is not None or by_second >= max(8, 0.10 * n)) else 1
+    decided = seen if clicks_per_cycle is None else clicks_per_cycle
     if decided == 1 or n < 2:
         for i, c in enumerate(out):
             c.kind = 0
             c.cycle = i
-        return out, 1
+        return out, 1, seen
     if alt < -0.5:
         labels = _two_families(out, feats)
     elif sep >= 4.0 and share >= 0.15:
@@ -2115,7 +2122,7 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
             c.cycle = cycle
         else:
             c.cycle = cycle if cycle >= 0 else None
-    return out, 2
+    return out, 2, seen
 
 
 def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
@@ -2129,10 +2136,10 @@ def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
     each click whose ring was measured (it has a decay time) takes its
     group's kind.  A click the matched filter found keeps its label (its
     ring was looked for near its template's, which tells nothing new;
-    :func:`_assign_kinds` lets the template tell its kind).  (The alternation and level tests
-    can lose their phase where the rate changes fast, at the start and end of
-    a run; the timbre does not change.)  Otherwise the labels are returned
-    unchanged.
+    :func:`_assign_kinds` lets the template tell its kind).  (The
+    alternation and level tests can lose their phase where the rate changes
+    fast, at the start and end of a run; the timbre does not change.)
+    Otherwise the labels are returned unchanged.
     """
     lab = labels.copy()
     lr = np.array([math.log(c.ring_hz) if c.ring_hz else np.nan for c in clicks])
@@ -2454,15 +2461,13 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         if extra:
             kept = sorted(kept + extra, key=lambda c: c.sample)
     hints = np.array([found_by.get(c.sample, -1) for c in kept], dtype=np.int64)
-    labelled, cpc = _assign_kinds(kept, clicks_per_cycle=clicks_per_cycle, hints=hints)
-    if clicks_per_cycle is not None and len(kept) >= 12:
+    labelled, cpc, seen = _assign_kinds(kept, clicks_per_cycle=clicks_per_cycle, hints=hints)
+    if clicks_per_cycle is not None and len(kept) >= 12 and seen != clicks_per_cycle:
         # a forced decision the clicks contradict: say so
-        _, seen = _assign_kinds(kept, clicks_per_cycle=None, hints=hints)
-        if seen != clicks_per_cycle:
-            looks = ("two families of clicks alternating in time" if seen == 2
-                     else "one family of clicks")
-            warnings.append(f"clicks per cycle forced to {clicks_per_cycle}, but the clicks look "
-                            f"like {seen} per cycle ({looks}); rates and phases may be wrong")
+        looks = ("two families of clicks alternating in time" if seen == 2
+                 else "one family of clicks")
+        warnings.append(f"clicks per cycle forced to {clicks_per_cycle}, but the clicks look "
+                        f"like {seen} per cycle ({looks}); rates and phases may be wrong")
     rings = [c.ring_hz for c in labelled if c.kind == 0 and c.ring_hz]
     ring = float(np.median(rings)) if rings else None
     all_rings = [c.ring_hz for c in labelled if c.ring_hz]
