@@ -240,9 +240,12 @@ _DEFAULT_THREADS_CHILD = """
 import sys, time
 from popmeter.analysis import analyze_file
 analyze_file(sys.argv[1])
-best = min((lambda t0: (analyze_file(sys.argv[1]), time.perf_counter() - t0)[1])(
-    time.perf_counter()) for _ in range(3))
-print(best)
+times = []
+for _ in range(3):
+    t0 = time.perf_counter()
+    analyze_file(sys.argv[1])
+    times.append(time.perf_counter() - t0)
+print(min(times))
 """
 
 _MEM_CHILD = """
