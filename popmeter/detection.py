@@ -72,8 +72,8 @@ The steps, and the published method each follows:
    32 clicks have been accepted, their aligned average is the main template
    (and, from accepted or nearly accepted clicks unlike it, a second
    template for the brighter second click of a two-click engine).  The
-   decimated stream is correlated with each template in fixed 1 s chunks and
-   the envelope of the output is thresholded against its own robust noise
+   decimated stream is correlated with each template in fixed 2 s chunks and
+   the envelope of the output (read at every second sample) is thresholded against its own robust noise
    level (Rayleigh statistics); the clicks a frame detector misses (startup
    and fade pops, second clicks) stand out there because the template
    gathers the whole ring's energy.  Once the second click's delay (as a
@@ -90,7 +90,7 @@ Latency of the streaming detector: a click is finalised once
 ``max_latency_s`` of audio after its onset has arrived (50 ms at 48 kHz with
 the defaults: the 12 ms refractory look-ahead, the 10.7 ms frame, 6 ms of
 onset search and the 20 ms ring tail), plus the block in which those samples
-arrive.  The matched-filter clicks reach :func:`finish_detection` about 1 s
+arrive.  The matched-filter clicks reach :func:`finish_detection` up to 2 s
 later (one chunk), or up to 30 s later for clicks before the templates
 formed.
 """
@@ -1032,10 +1032,12 @@ class _TemplateScan:
     matched filter, North 1943; Turin, "An introduction to matched filters",
     IRE Trans. IT-6, 1960), in fixed chunks of ``chunk_s`` by FFT (300 Hz to
     0.45 x the decimated rate), and the envelope of the output (analytic
-    signal) is compared with a noise level: the larger of (a) the chunk's
-    floor, the lower decile of the 10 ms medians of the envelope divided by
-    its value on white Gaussian noise (computed once per template, fixed
-    seed) -- robust to clicks filling most of the chunk -- and (b) the median
+    signal, read exactly at every second sample: :meth:`_envelope`) is
+    compared with a noise level: the larger of (a) the floor of each second
+    of the chunk, the lower decile of the 10 ms medians of the envelope over
+    that second and the chunk's margins, divided by its value on white
+    Gaussian noise (computed once per template, fixed seed) -- robust to
+    clicks filling most of the time -- and (b) the median
     of the three 10 ms medians 20-50 ms earlier (speech or a splash raises
     it; bins within an accepted click's ring count as zero there); each over 1.1774, the median of a Rayleigh variable of unit scale
     (the envelope of Gaussian noise is Rayleigh).  A click is a peak
@@ -1061,7 +1063,7 @@ class _TemplateScan:
     """
 
     def __init__(self, fs_in: float, q: int, fs_d: float, *, threshold: float = 5.0,
-                 n_examples: int = 32, length_s: float = 0.012, chunk_s: float = 1.0,
+                 n_examples: int = 32, length_s: float = 0.012, chunk_s: float = 2.0,
                  lookback_s: float = 30.0) -> None:
         self.fs_in, self.q, self.fs_d = fs_in, q, fs_d
         self.threshold = threshold
@@ -1073,6 +1075,13 @@ class _TemplateScan:
         self.C = round(chunk_s * fs_d)
         self.E = round(0.020 * fs_d)  # look-back of a chunk's output (rise test)
         self.E2 = round(0.015 * fs_d)  # look-ahead (peak window)
+        # the envelope is read at every R-th output sample (exactly: see _envelope)
+        self.R = 2
+        self.n_env = -(-(self.C + self.E + self.E2) // self.R)
+        self.G = self.R * round(0.010 * fs_d / self.R)  # 10 ms statistics bins (decimated samples)
+        # the floor's span: 1 s of the chunk (with its margins), so that a
+        # quiet second does not lower the floor of a loud one
+        self.S = round(1.0 * fs_d)
         self.lookback = round(lookback_s * fs_d)
         self.buf = np.zeros(0, dtype=np.float32)
         self.b0 = 0  # decimated index of buf[0]
@@ -1082,7 +1091,7 @@ class _TemplateScan:
         self.example_onsets: list[int] = []
         self.phase: float | None = None  # second click's delay / the period before
         self._is_main: dict[int, bool] = {}  # accepted onset -> like the main template
-        # per template slot: [filter spectrum (conjugate, band-masked, x2) or
+        # per template slot: [filter spectrum (conjugate, band-masked) or
         # None, ring_hz, time-domain h, next chunk, floor calibration, ring DFT basis]
         self.slots: list[list] = [[None, 0.0, None, 0, 1.0, None],
                                   [None, 0.0, None, 0, 1.0, None]]
@@ -1093,12 +1102,14 @@ class _TemplateScan:
         self.click_fit: list[float] = []
         self.click_slot: list[int] = []  # which template found each click (0 main, 1 second)
         self.main_found: list[int] = []  # onsets (decimated) the main template found
-        self.nfft = sp_fft.next_fast_len(self.C + self.E + self.E2 + self.L, real=True)
+        # (even, and its half a fast length: the envelope's inverse FFT has nfft / R points)
+        self.nfft = self.R * sp_fft.next_fast_len(-(-(self.C + self.E + self.E2 + self.L)
+                                                    // self.R))
         f = np.arange(self.nfft // 2 + 1) * (fs_d / self.nfft)
         self.mask = ((f >= 300.0) & (f <= 0.45 * fs_d)).astype(np.float32)
         self._spec_key: int | None = None  # chunk whose spectrum is in _spec
         self._spec = np.zeros(0, dtype=np.complex64)
-        self._ibuf = np.zeros(self.nfft, dtype=np.complex64)  # (the inverse FFT's input)
+        self._ibuf = np.zeros(self.nfft // self.R, dtype=np.complex64)  # (the inverse FFT's input)
         # second template by folding (see _fold_second): tried at fixed places
         # in the stream, so the result does not depend on block sizes
         self.fold_every = round(5.0 * fs_d)  # decimated samples between folds
@@ -1221,9 +1232,8 @@ class _TemplateScan:
         spec = np.abs(sp_fft.rfft(h, n=nf))
         fr = np.arange(spec.size) * (self.fs_d / nf)
         spec[(fr < 300.0) | (fr > 0.45 * self.fs_d)] = 0.0
-        # (the conjugate spectrum with the band mask and the analytic signal's
-        # factor 2 folded in: exact, the mask is 0 or 1 and 2 a power of two)
-        slot[0] = np.conj(sp_fft.rfft(h, n=self.nfft)).astype(np.complex64) * (2.0 * self.mask)
+        # (the conjugate spectrum with the band mask folded in: exact, the mask is 0 or 1)
+        slot[0] = np.conj(sp_fft.rfft(h, n=self.nfft)).astype(np.complex64) * self.mask
         slot[1] = float(fr[int(np.argmax(spec))])
         slot[2] = h
         # the floor estimator's value on noise alone, relative to the median
@@ -1231,6 +1241,7 @@ class _TemplateScan:
         noise = np.random.default_rng(12345).standard_normal(self.nfft).astype(np.float32)
         slot[4] = 1.0
         env = self._envelope(noise[:self.C + self.E + self.E2 + self.L - 1], slot[0])
+        env = env[:-(-(self.S + self.E + self.E2) // self.R)]  # (one floor span)
         slot[4] = float(np.percentile(self._bin_medians(env), 10)) / float(np.median(env))
 
     def _fold_second(self, upto: int) -> bool:
@@ -1534,22 +1545,32 @@ class _TemplateScan:
 
     def _envelope(self, seg: np.ndarray, hc: np.ndarray, key: int | None = None
                   ) -> np.ndarray:
-        """Envelope of the matched-filter output (analytic signal) of one chunk."""
+        """Envelope of the matched-filter output of one chunk, at every R-th sample.
+
+        The output's analytic signal z has the one-sided spectrum Z (the
+        chunk's spectrum times the template's conjugate, band-masked).  With
+        N = nfft, ``z[R j] = (1/N) sum_k Z[k] exp(2 pi i k j / (N / R))``, and
+        Z is zero from bin N / R on (the band mask stops at 0.45 of the
+        decimated rate, below bin N / 2), so ``z[R j]`` is exactly the inverse
+        DFT of length N / R of the first N / R bins, divided by R (Z is twice
+        the product of the spectra, as for any analytic signal): half the
+        work of the whole output for R = 2.  The 10 ms statistics and the
+        peaks read these samples; a peak's time is interpolated between them.
+        """
         if key is None or key != self._spec_key:
             self._spec = sp_fft.rfft(seg, n=self.nfft)
             self._spec_key = key
-        # one-sided spectrum x the template's (band mask and factor 2 in it, DC
-        # masked), negative frequencies zero: the analytic signal; one buffer
-        # reused (a new one per chunk costs page faults)
-        k = self._spec.size
-        buf = self._ibuf
-        np.multiply(self._spec, hc, out=buf[:k])
-        buf[k:] = 0
-        return np.abs(sp_fft.ifft(buf, overwrite_x=True)[:self.C + self.E + self.E2])
+        k = self.nfft // self.R
+        buf = self._ibuf  # (one buffer reused: a new one per chunk costs page faults)
+        np.multiply(self._spec[:k], hc[:k], out=buf)
+        out = np.abs(sp_fft.ifft(buf, overwrite_x=True)[:self.n_env])
+        if self.R != 2:  # (the analytic signal's factor 2 over R)
+            out *= np.float32(2.0 / self.R)
+        return out
 
     def _bin_medians(self, env: np.ndarray) -> np.ndarray:
-        """Median of env per 10 ms bin (the upper median: an order statistic)."""
-        g = round(0.010 * self.fs_d)
+        """Median of env (every R-th sample) per 10 ms bin (the upper median: an order statistic)."""
+        g = self.G // self.R
         nb = env.size // g
         return np.partition(env[:nb * g].reshape(nb, g), g // 2, axis=1)[:, g // 2]
 
@@ -1615,14 +1636,17 @@ class _TemplateScan:
 
     def _scan(self, a: int, si: int) -> None:
         hc = self.slots[si][0]
+        R, G = self.R, self.G
         s0 = a - self.E - self.P  # decimated index of seg[0]
-        n_out = self.C + self.E + self.E2
+        n_out = self.C + self.E + self.E2  # output samples (decimated rate)
         m = n_out + self.L - 1
         seg = np.zeros(self.nfft, dtype=np.float32)  # (zero-padded to the FFT length here)
         lo, hi = max(s0, self.b0), min(s0 + m, self.b0 + self.buf.size)
         if hi > lo:
             seg[lo - s0:hi - s0] = self.buf[lo - self.b0:hi - self.b0]
-        env = self._envelope(seg, hc, a)  # output i <-> onset at a - E + i
+        # env[j] <-> the output at R j <-> a click whose onset is at base + R j
+        env = self._envelope(seg, hc, a)
+        n_env = env.size
         base = a - self.E
         i0 = bisect.bisect_left(self.onsets, base - self.E2)
         i1 = bisect.bisect_left(self.onsets, base + n_out + self.E2)
@@ -1630,91 +1654,104 @@ class _TemplateScan:
         r_near = round(0.010 * self.fs_d)  # within 10 ms of an accepted click
         expect = si == 1 and self.phase is not None
         # (as a mask only for the expected-click search; the free scan asks at its peaks)
-        near = _cover(on - r_near, on + r_near + 1, n_out) if expect else None
+        near = (_cover(-((r_near - on) // R), (on + r_near) // R + 1, n_env) if expect
+                else None)
         # noise level: the envelope's median per 10 ms bin; the floor is the
-        # lower decile of those medians within +-0.5 s (robust to clicks
-        # covering up to 90 % of the time), divided by its value for noise
-        # alone; near a point, the median over the 50-20 ms before it (so
-        # speech and other sounds raise the level) -- the larger is used
+        # lower decile of those medians over each second of the chunk and
+        # its margins (robust to clicks covering up to 90 % of the time),
+        # divided by its value for noise alone; near a point, the median over
+        # the 50-20 ms before it (so speech and other sounds raise the
+        # level) -- the larger is used
         if base < 0:  # before the stream's start: no audio, no statistics
             env_s = env.copy()
-            env_s[:-base] = np.median(env[-base:])
+            j0 = -(base // R)
+            env_s[:j0] = np.median(env[j0:])
         else:
             env_s = env
-        g = round(0.010 * self.fs_d)
-        nb = n_out // g
+        g = G // R  # envelope samples per bin
+        nb = n_env // g
         bm = self._bin_medians(env_s)
-        floor = float(_percentile(bm, 10)) / self.slots[si][4]  # one value per chunk
+        S = self.S
+        spans = [(k * S // G, (k * S + S + self.E + self.E2) // G) for k in range(self.C // S)]
+        floors = np.array([float(_percentile(bm[u:v], 10)) for u, v in spans]) / self.slots[si][4]
+        # (per bin: the floor of the second its start lies in)
+        floor = floors[np.clip((np.arange(nb + 1) * G - self.E) // S, 0, floors.size - 1)]
         # bins where accepted clicks (and their rings) fill the envelope: not
         # used as the local level before a point (a second click follows its
         # main one); a bin is busy when [onset - L, onset + E2 + E) reaches it
         b_lo = np.clip(on - self.L, 0, n_out)
         b_hi = np.clip(on + self.E2 + self.E, 0, n_out)
         reach = b_hi > b_lo
-        busy = _cover(b_lo[reach] // g, (b_hi[reach] + g - 1) // g, nb)
+        busy = _cover(b_lo[reach] // G, (b_hi[reach] + G - 1) // G, nb)
         bm_local = np.where(busy, 0.0, bm)
         pre = np.concatenate([np.full(4, bm_local[0] if nb else 0.0), bm_local])
         p0, p1, p2 = pre[0:nb], pre[1:nb + 1], pre[2:nb + 2]
         prev = p0 + p1 + p2 - np.maximum(np.maximum(p0, p1), p2) - np.minimum(
             np.minimum(p0, p1), p2)  # median of three
-        lvl_b = np.maximum(floor, prev) / 1.1774
-        if nb:  # the level at output i is that of its bin (the last bin's past the end)
+        lvl_b = np.maximum(floor[:nb], prev) / 1.1774
+        if nb:  # the level at envelope sample j is that of its bin (the last bin's past the end)
             lvl = np.append(lvl_b, lvl_b[-1])
         else:
             lvl = np.full(1, float(np.median(env)) / 1.1774)
-        r1, r2 = round(0.005 * self.fs_d), round(0.012 * self.fs_d)
-        l1, l2 = self.L + round(0.004 * self.fs_d), self.L + round(0.001 * self.fs_d)
-        i0, i1 = self.E, min(self.E + self.C, n_out - 1)
+
+        def level_at(j: np.ndarray | int) -> np.ndarray:
+            return lvl[np.minimum(j // g, lvl.size - 1)]
+
+        # the peak tests' spans, in envelope samples
+        r1, r2 = round(0.005 * self.fs_d / R), round(0.012 * self.fs_d / R)
+        l1 = round((self.L + round(0.004 * self.fs_d)) / R)
+        l2 = round((self.L + round(0.001 * self.fs_d)) / R)
+        j0, j1 = -(-self.E // R), min(-(-(self.E + self.C) // R), n_env - 1)
         # (each test on the candidates the ones before left standing; first a
         # bound every peak over the threshold passes: above it times the lowest level)
-        c = np.flatnonzero(env[i0:i1] >= np.float32(0.99 * self.threshold * float(lvl.min()))
-                           ) + i0
+        c = np.flatnonzero(env[j0:j1] >= np.float32(0.99 * self.threshold * float(lvl.min()))
+                           ) + j0
         c = c[(env[c] >= env[c - 1]) & (env[c] > env[c + 1])]  # the peaks
         if on.size:  # no accepted click within r_near
-            k = np.minimum(np.searchsorted(on, c - r_near), on.size - 1)
-            c = c[~((on[k] >= c - r_near) & (on[k] <= c + r_near))]
-        # the envelope over its noise level, at the peaks only
-        def level_at(i: np.ndarray | int) -> np.ndarray:
-            return lvl[np.minimum(i // g, lvl.size - 1)]  # (the last bin's past the end)
-
+            cf = R * c
+            k = np.minimum(np.searchsorted(on, cf - r_near), on.size - 1)
+            c = c[~((on[k] >= cf - r_near) & (on[k] <= cf + r_near))]
         c = c[env[c] / np.maximum(level_at(c), 1e-30) >= self.threshold]
-        last = n_out - 1  # (indices past the end clipped: env >= 0 and the end is in the window)
-        c = c[base + c - l1 >= 0]  # the stream's start is no reference
+        last = n_env - 1  # (indices past the end clipped: env >= 0 and the end is in the window)
+        c = c[base + R * c - R * l1 >= 0]  # the stream's start is no reference
         c = c[env[c] > env[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)]
         c = c[env[c] >= env[np.minimum(c[:, None] + np.arange(1, r2 + 1)[None, :], last)
                             ].max(axis=1)]
         c = c[env[c] >= 2.0 * env[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)]
-        found = set(c.tolist())
+        found = c.tolist()
         if expect:
-            found |= self._expected(base, n_out, env, env * (1.1774 / floor), near)
-        order = sorted(found)
-        rings = self._rings([base + i - self.b0 for i in order], si)
-        if order:
-            o = np.array(order)
-            w = _rows(seg, o, self.L).astype(np.float64)
-            fit = env[o] / np.sqrt(np.maximum(np.einsum("ij,ij->i", w, w), 1e-30))
-            self.click_fit.extend(np.minimum(fit, 1.0).tolist())
-            self.click_slot.extend([si] * len(order))
-            if si == 0:
-                self.main_found.extend((base + o).tolist())
-        for i, ring in zip(order, rings):
-            al, be, ga = env[i - 1], env[i], env[i + 1]
-            den = al - 2 * be + ga
-            # (in float64: a float32 sum would round the stream index itself,
-            # by up to 16 decimated samples after 93 minutes)
-            frac = float(0.5 * (al - ga) / den) if den < 0 else 0.0
-            onset_in = round((base + i + frac) * self.q)
-            d0 = base + i - self.b0
-            raw = self.buf[max(d0, 0):max(d0 + round(0.005 * self.fs_d), 0)]
+            found = found + self._expected(base, n_out, env, floor, near)
+        order = np.unique(np.array(found, dtype=np.int64))
+        if order.size == 0:
+            return
+        of = R * order  # output samples (decimated) of the peaks
+        rings = self._rings((base + of - self.b0).tolist(), si)
+        w = _rows(seg, of, self.L).astype(np.float64)
+        fit = env[order] / np.sqrt(np.maximum(np.einsum("ij,ij->i", w, w), 1e-30))
+        self.click_fit.extend(np.minimum(fit, 1.0).tolist())
+        self.click_slot.extend([si] * order.size)
+        if si == 0:
+            self.main_found.extend((base + of).tolist())
+        # the peak's time between the envelope's samples: quadratic
+        # interpolation (in float64: a float32 sum would round the stream
+        # index itself, by up to 16 decimated samples after 93 minutes)
+        al, be, ga = (env[order - 1].astype(np.float64), env[order].astype(np.float64),
+                      env[order + 1].astype(np.float64))
+        den = al - 2 * be + ga
+        frac = np.where(den < 0, 0.5 * (al - ga) / np.where(den < 0, den, -1.0), 0.0)
+        onsets_in = np.round((base + R * (order + frac)) * self.q).astype(np.int64).tolist()
+        strength = 20 * np.log10(env[order] / np.maximum(level_at(order), 1e-30))
+        d0 = base + of - self.b0
+        n5 = round(0.005 * self.fs_d)
+        for onset_in, ring, st, d in zip(onsets_in, rings, strength.tolist(), d0.tolist()):
+            raw = self.buf[max(d, 0):max(d + n5, 0)]
             peak = float(np.max(np.abs(raw))) if raw.size else 0.0
             self.clicks.append(Click(time_s=onset_in / self.fs_in, sample=onset_in,
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
-                                     strength=round(20 * math.log10(
-                                         float(env[i] / np.maximum(level_at(i), 1e-30))), 3),
-                                     ring_hz=ring, decay_s=None))
+                                     strength=round(float(st), 3), ring_hz=ring, decay_s=None))
 
-    def _expected(self, base: int, n_out: int, env: np.ndarray, score: np.ndarray,
-                  near: np.ndarray) -> set[int]:
+    def _expected(self, base: int, n_out: int, env: np.ndarray, floor: np.ndarray,
+                  near: np.ndarray) -> list[int]:
         """Second clicks where the cycle puts them (bounded search, lower threshold).
 
         For each main click of the chunk, the second click is expected
@@ -1728,10 +1765,11 @@ class _TemplateScan:
         (the clicks are deep in noise, where a click's likeness to the
         template is uncertain), every accepted click but those that follow
         their click at the phase and are followed by the next at the rest of
-        the period.
+        the period.  ``env`` holds every R-th output sample and ``near`` marks
+        its samples within 10 ms of an accepted click; ``floor`` is the floor
+        per 10 ms bin (and one past the end); returns indices into ``env``.
         """
-        out: set[int] = set()
-        r1, r2 = round(0.002 * self.fs_d), round(0.004 * self.fs_d)
+        R = self.R
         if self.folded:
             # (the main template's finds up to this chunk's end: it scans each
             # chunk before the second template does)
@@ -1739,7 +1777,7 @@ class _TemplateScan:
         else:
             ons = self._mains(base - round(self.fs_d), base + n_out)
         if ons.size < 3:
-            return out
+            return []
         gaps = np.diff(ons).astype(np.float64)
         period = _local_periods(gaps)  # around each gap (the upper quartile is kept)
         m0 = ons[1:]  # the click after each gap
@@ -1754,19 +1792,29 @@ class _TemplateScan:
         delay = self.phase * period[ok]
         pred = m0[ok] + np.round(delay).astype(np.int64) - base
         half = np.round(0.001 * self.fs_d + 0.03 * delay).astype(np.int64)
-        lo_i, hi_i = self.E, min(self.E + self.C, n_out - 1)
-        for p, w in zip(pred.tolist(), half.tolist()):
-            if p < lo_i or p >= hi_i:
-                continue
-            a, b = max(p - w, 1), min(p + w + 1, n_out - 1)
-            if a >= b or near[a:b].any():
-                continue
-            i = a + int(np.argmax(env[a:b]))
-            ref = env[max(i - r2, 0):max(i - r1, 1)].max()
-            if (score[i] >= self.expect_threshold and env[i] >= env[i - 1]
-                    and env[i] >= env[i + 1] and env[i] >= ref):
-                out.add(i)
-        return out
+        inside = (pred >= self.E) & (pred < min(self.E + self.C, n_out - 1))
+        pred, half = pred[inside], half[inside]
+        # the search windows [a, b) in envelope samples, none within 10 ms of
+        # an accepted click
+        a = np.maximum(-((half - pred) // R), 1)
+        b = np.minimum((pred + half) // R + 1, env.size - 1)
+        cn = np.concatenate([[0], np.cumsum(near)])
+        keep = (a < b) & (cn[np.maximum(b, a)] == cn[a])
+        a, b = a[keep], b[keep]
+        if a.size == 0:
+            return []
+        span = np.arange(int((b - a).max()))[None, :]
+        idx = a[:, None] + span
+        vals = np.where(idx < b[:, None], env[np.minimum(idx, env.size - 1)], -np.inf)
+        i = a + np.argmax(vals, axis=1)
+        # standing no lower than the envelope 2-4 ms before (not the falling
+        # shoulder of something earlier)
+        q1, q2 = round(0.002 * self.fs_d / R), round(0.004 * self.fs_d / R)
+        ref = env[np.maximum(i[:, None] - q2 + np.arange(q2 - q1)[None, :], 0)].max(axis=1)
+        fl = floor[np.minimum(i // (self.G // R), floor.size - 1)]
+        good = ((env[i] * (1.1774 / fl) >= self.expect_threshold)
+                & (env[i] >= env[i - 1]) & (env[i] >= env[i + 1]) & (env[i] >= ref))
+        return i[good].tolist()
 
     def _rings(self, starts: list[int], si: int) -> list[float | None]:
         """Ring frequency (Hz) of the 20 ms tails at these buffer indices.

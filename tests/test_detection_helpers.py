@@ -77,3 +77,30 @@ def test_row_dots_equals_matmul():
         assert got.shape == (k, 130)
         ref = a.astype(np.float64) @ b.astype(np.float64).T
         assert np.allclose(got, ref, rtol=0, atol=1e-4 * max(1.0, float(np.abs(ref).max(initial=0))))
+
+
+@pytest.mark.parametrize("fs_d", [24000.0, 22050.0, 16000.0])
+def test_scan_envelope_is_the_analytic_signal_of_the_filter_output(fs_d):
+    # the matched-filter scan reads its output's envelope at every second
+    # sample from a half-length inverse FFT; outside reference: the analytic
+    # signal of the band-limited filter output by scipy.signal.hilbert
+    # (Marple, IEEE Trans. Signal Process. 47, 1999)
+    from scipy import signal
+
+    from popmeter.detection import _TemplateScan
+
+    scan = _TemplateScan(2 * fs_d, 2, fs_d)
+    rng = np.random.default_rng(3)
+    t = np.arange(scan.L) / fs_d
+    h = np.sin(2 * np.pi * 1700.0 * t) * np.exp(-t / 0.003)
+    h = (h - h.mean()) / np.linalg.norm(h - h.mean())
+    scan._install(scan.slots[0], h)
+    seg = rng.standard_normal(scan.nfft).astype(np.float32)
+    seg[scan.C + scan.E + scan.E2 + scan.L - 1:] = 0.0  # (the scan's zero padding)
+    env = scan._envelope(seg, scan.slots[0][0])
+    # the filter output itself: correlation with the template, band-limited
+    spec = np.fft.rfft(seg.astype(np.float64)) * np.conj(np.fft.rfft(h, n=scan.nfft)) * scan.mask
+    y = np.fft.irfft(spec, n=scan.nfft)
+    ref = np.abs(signal.hilbert(y))[:scan.R * env.size:scan.R]
+    assert env.size == -(-(scan.C + scan.E + scan.E2) // scan.R)
+    assert np.max(np.abs(env - ref)) <= 1e-5 * np.max(ref)
