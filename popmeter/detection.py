@@ -1506,12 +1506,13 @@ class _TemplateScan:
         w = self.buf[st[ok][:, None] + np.arange(self.L + 2 * self.A)[None, :]]
         # every other shift (as for the templates); the template has zero mean,
         # so the windows' own means do not change the products
-        win = np.lib.stride_tricks.sliding_window_view(w, self.L, axis=1)[:, ::2]
-        cs = np.concatenate([np.zeros((w.shape[0], 1)), np.cumsum(
-            w.astype(np.float64), axis=1), ], axis=1)
-        cs2 = np.concatenate([np.zeros((w.shape[0], 1)), np.cumsum(
-            w.astype(np.float64) ** 2, axis=1)], axis=1)
         L = self.L
+        win = _windows(w, L)[:, ::2]
+        w64 = w.astype(np.float64)
+        cs = np.zeros((w.shape[0], w.shape[1] + 1))
+        np.cumsum(w64, axis=1, out=cs[:, 1:])
+        cs2 = np.zeros_like(cs)
+        np.cumsum(w64 ** 2, axis=1, out=cs2[:, 1:])
         ssum = (cs[:, L:] - cs[:, :-L])[:, ::2]
         ssq = (cs2[:, L:] - cs2[:, :-L])[:, ::2]
         norm = np.sqrt(np.maximum(ssq - ssum * ssum / L, 0.0)) + 1e-20
@@ -1741,11 +1742,18 @@ class _TemplateScan:
         frac = np.where(den < 0, 0.5 * (al - ga) / np.where(den < 0, den, -1.0), 0.0)
         onsets_in = np.round((base + R * (order + frac)) * self.q).astype(np.int64).tolist()
         strength = 20 * np.log10(env[order] / np.maximum(level_at(order), 1e-30))
+        # the level: the largest sample within 5 ms of the onset
         d0 = base + of - self.b0
         n5 = round(0.005 * self.fs_d)
-        for onset_in, ring, st, d in zip(onsets_in, rings, strength.tolist(), d0.tolist()):
-            raw = self.buf[max(d, 0):max(d + n5, 0)]
-            peak = float(np.max(np.abs(raw))) if raw.size else 0.0
+        peaks = np.zeros(order.size, dtype=np.float32)
+        inner = (d0 >= 0) & (d0 + n5 <= self.buf.size)
+        if inner.any():
+            peaks[inner] = np.abs(_rows(self.buf, d0[inner], n5)).max(axis=1)
+        for j in np.flatnonzero(~inner).tolist():  # (at the buffer's ends)
+            raw = self.buf[max(d0[j], 0):max(d0[j] + n5, 0)]
+            peaks[j] = np.max(np.abs(raw)) if raw.size else 0.0
+        for onset_in, ring, st, peak in zip(onsets_in, rings, strength.tolist(),
+                                            peaks.tolist()):
             self.clicks.append(Click(time_s=onset_in / self.fs_in, sample=onset_in,
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
                                      strength=round(float(st), 3), ring_hz=ring, decay_s=None))
@@ -1863,11 +1871,19 @@ def _rows(x: np.ndarray, starts: np.ndarray, length: int,
     """
     if x.ndim == 1:
         x, rows = x[None, :], np.zeros(len(starts), dtype=np.int64)
-    # (the strided view of every window, as sliding_window_view makes it, without its checks)
-    view = np.lib.stride_tricks.as_strided(
+    view = _windows(x, length)
+    return view[np.arange(x.shape[0]) if rows is None else rows, starts]
+
+
+def _windows(x: np.ndarray, length: int) -> np.ndarray:
+    """Every window of ``length`` along the last axis of a 2-D x (a read-only view).
+
+    The view ``numpy.lib.stride_tricks.sliding_window_view(x, length, axis=1)``
+    makes, without its checks (which cost more than the work on a few rows).
+    """
+    return np.lib.stride_tricks.as_strided(
         x, shape=(x.shape[0], x.shape[1] - length + 1, length),
         strides=(x.strides[0], x.strides[1], x.strides[1]), writeable=False)
-    return view[np.arange(x.shape[0]) if rows is None else rows, starts]
 
 
 def _row_dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -1933,7 +1949,8 @@ def _local_periods(gaps: np.ndarray, *, keep: float = 0.75) -> np.ndarray:
     g = np.asarray(gaps, dtype=np.float64)
     if g.size == 0:
         return np.zeros(0)
-    s = np.sort(np.lib.stride_tricks.sliding_window_view(np.pad(g, 4, mode="edge"), 9), axis=1)
+    padded = np.concatenate([np.repeat(g[:1], 4), g, np.repeat(g[-1:], 4)])  # (edge padding)
+    s = np.sort(_windows(padded[None, :], 9)[0], axis=1)
     first = np.count_nonzero(s < keep * s[:, 6:7], axis=1)  # the kept ones are s[first:]
     m = 9 - first
     r = np.arange(s.shape[0])
