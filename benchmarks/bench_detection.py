@@ -234,6 +234,49 @@ def speed(tmp: str, minutes: float) -> None:
                          capture_output=True, text=True, check=True).stdout.split()
     d = float(out[0])
     print(f"analyze_file, default thread pools (fresh)     : {d:7.3f} s  = {dur / d:7.0f}x real time")
+    stages(path)
+
+
+# where the whole analyze spends its time: (label, the functions whose
+# cumulative time counts, by file name ending and function name)
+_STAGES = [
+    ("reading the file (soundfile, in blocks)", [("audio_io.py", "_blocks")]),
+    ("full-rate high-pass (scipy sosfilt)", [("detection.py", "process:sosfilt")]),
+    ("frame stage (STFT, statistics, peak picking)", [("detection.py", "_analyse")]),
+    ("candidates' onsets and features", [("detection.py", "_finalise")]),
+    ("matched-filter scan and folds", [("detection.py", "_advance_scan")]),
+    ("whole-recording passes (kinds, second look)", [("detection.py", "_result")]),
+    ("timeline and summary", [("analysis.py", "analyze_clicks")]),
+]
+
+
+def stages(path: str) -> None:
+    """The whole analyze under cProfile, cumulative time per stage."""
+    import cProfile
+    import pstats
+
+    from popmeter.analysis import analyze_file
+
+    prof = cProfile.Profile()
+    prof.enable()
+    analyze_file(path)
+    prof.disable()
+    st = pstats.Stats(prof).stats  # (file, line, name) -> (cc, nc, tt, ct, callers)
+    total = sum(v[2] for v in st.values())
+
+    def cum(file_end: str, name: str) -> float:
+        if ":" in name:  # a library function called from one of ours: its time from there
+            caller, callee = name.split(":")
+            return sum(t[3] for (f, _ln, fn), v in st.items() if fn == callee
+                       for (cf, _cl, cn), t in v[4].items()
+                       if cf.endswith(file_end) and cn == caller)
+        return sum(v[3] for (f, _ln, fn), v in st.items() if f.endswith(file_end) and fn == name)
+
+    print(f"\n== where the whole analyze spends its time (one run under cProfile, which "
+          f"inflates Python-level work; {total:.2f} s in all) ==")
+    for label, keys in _STAGES:
+        t = sum(cum(f, n) for f, n in keys)
+        print(f"{label:48s} {t:6.3f} s  {100 * t / total:5.1f} %")
 
 
 _DEFAULT_THREADS_CHILD = """
