@@ -77,3 +77,32 @@ def test_row_dots_equals_matmul():
         assert got.shape == (k, 130)
         ref = a.astype(np.float64) @ b.astype(np.float64).T
         assert np.allclose(got, ref, rtol=0, atol=1e-4 * max(1.0, float(np.abs(ref).max(initial=0))))
+
+
+def test_copied_click_equals_copy_copy():
+    # reference: copy.copy (a shallow copy), compared field by field (dataclasses.fields)
+    import copy
+    import dataclasses
+
+    from popmeter.detection import Click, _copied
+
+    for c in (Click(1.25, 60000, -12.5, 21.0, 3150.0, 0.004, 1, 7),
+              Click(0.5, 24000, -30.0, 9.0, None, None)):
+        got, ref = _copied(c), copy.copy(c)
+        assert got is not c and type(got) is type(ref)
+        for f in dataclasses.fields(Click):
+            assert getattr(got, f.name) == getattr(ref, f.name)
+
+
+def test_log_distance_equals_one_value_at_a_time():
+    # reference: math.log and numpy's min of absolute differences, one value at a time
+    import math
+
+    from popmeter.detection import _log_distance
+
+    rng = np.random.default_rng(10)
+    values = rng.uniform(400.0, 9000.0, 300)
+    centres = np.log(rng.uniform(400.0, 9000.0, 3))
+    expected = [np.min(np.abs(math.log(v) - centres)) for v in values]
+    assert np.array_equal(_log_distance(values, centres), expected)
+    assert np.array_equal(_log_distance(values.tolist(), centres), expected)
