@@ -86,12 +86,15 @@ def test_copied_click_equals_copy_copy():
 
     from popmeter.detection import Click, _copied
 
+    names = [f.name for f in dataclasses.fields(Click)]
+    # a distinct object in every field (a field added to Click and not copied fails here)
+    marked = Click(**{name: object() for name in names})
     for c in (Click(1.25, 60000, -12.5, 21.0, 3150.0, 0.004, 1, 7),
-              Click(0.5, 24000, -30.0, 9.0, None, None)):
+              Click(0.5, 24000, -30.0, 9.0, None, None), marked):
         got, ref = _copied(c), copy.copy(c)
         assert got is not c and type(got) is type(ref)
-        for f in dataclasses.fields(Click):
-            assert getattr(got, f.name) == getattr(ref, f.name)
+        for name in names:
+            assert getattr(got, name) is getattr(ref, name)
 
 
 def test_log_distance_equals_one_value_at_a_time():
