@@ -2003,12 +2003,12 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
     lo = np.searchsorted(lr, lr - width)
     hi = np.searchsorted(lr, lr + width, side="right")
     dens = hi - lo
-    order = np.argsort(-dens, kind="stable")
-    dense = lr[order[:np.count_nonzero(dens >= need)]].tolist()
+    # (the densest point left is a centre; the points within 2 widths of it go)
+    left = lr[np.argsort(-dens, kind="stable")[:np.count_nonzero(dens >= need)]]
     centres: list[float] = []
-    for x in dense:
-        if all(abs(x - c) > 2 * width for c in centres):
-            centres.append(x)
+    while left.size:
+        centres.append(float(left[0]))
+        left = left[np.abs(left - left[0]) > 2 * width]
     if not centres:
         return []
     times = np.array([c.time_s for c in kept])
