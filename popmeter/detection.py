@@ -2121,8 +2121,8 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
         labels = np.where(hints >= 0, hints, labels)
     labels = _second_at_its_place(times, labels)
     cycle = -1
-    for c, lab in zip(out, labels):
-        c.kind = int(lab)
+    for c, lab in zip(out, labels.tolist()):
+        c.kind = lab
         if lab == 0:
             cycle += 1
             c.cycle = cycle
@@ -2378,27 +2378,30 @@ def _two_families(clicks: list[Click], feats: np.ndarray) -> np.ndarray:
     typ = float(np.median(gaps)) if gaps.size else 1.0
     # Viterbi: alternation expected; staying in the same family is cheap only after a gap
     stay = np.where(gaps > 1.5 * typ, 0.5, 4.0 * m * m + 1.0)
-    # (on Python floats: the same sums as on numpy's, many times faster one by one)
-    cost = (cost_a.tolist(), cost_b.tolist())
-    acc = [cost[0][0], cost[1][0]]
-    back = ([0] * n, [1] * n)
-    for i, st in enumerate(stay.tolist(), start=1):
-        new = [0.0, 0.0]
-        for s in range(2):
-            c_same = acc[s] + st
-            c_switch = acc[1 - s]
-            if c_same <= c_switch:
-                new[s] = c_same + cost[s][i]
-            else:
-                new[s] = c_switch + cost[s][i]
-                back[s][i] = 1 - s
-        acc = new
-    lab = np.zeros(n, dtype=np.int64)
-    state = int(np.argmin(acc))
-    lab[-1] = state
+    # (on Python floats, the two states written out: the same sums as on
+    # numpy's, many times faster one by one)
+    acc_a, acc_b = float(cost_a[0]), float(cost_b[0])
+    back_a, back_b = [0] * n, [1] * n  # the state before, in a and in b
+    for i, (st, ca, cb) in enumerate(zip(stay.tolist(), cost_a[1:].tolist(),
+                                         cost_b[1:].tolist(), strict=True), start=1):
+        stay_a, stay_b = acc_a + st, acc_b + st
+        if stay_a <= acc_b:
+            new_a = stay_a + ca
+        else:
+            new_a = acc_b + ca
+            back_a[i] = 1
+        if stay_b <= acc_a:
+            new_b = stay_b + cb
+        else:
+            new_b = acc_a + cb
+            back_b[i] = 0
+        acc_a, acc_b = new_a, new_b
+    state = int(np.argmin([acc_a, acc_b]))
+    path = [state]
     for i in range(n - 1, 0, -1):
-        state = back[state][i]
-        lab[i - 1] = state
+        state = (back_a, back_b)[state][i]
+        path.append(state)
+    lab = np.array(path[::-1], dtype=np.int64)
     lvl = feats[:, 0]
     if (np.any(lab == 0) and np.any(lab == 1)
             and np.median(lvl[lab == 1]) > np.median(lvl[lab == 0])):
