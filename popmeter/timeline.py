@@ -605,10 +605,17 @@ def build_timeline(
         boundary = found.start_s if found.core is not None else found.peak_s
         relaxed = np.where(t[:-1] < boundary, float(startup_stall_factor), float(stall_factor))
         if not np.array_equal(relaxed, factor):
+            first = cyc
             cyc = _cycles_from_gaps(t, local, relaxed)
-            found = _steady_state(
-                cyc, tol=tol, edge=edge, min_cycles=steady_min_cycles, w=smoothing_cycles
-            )
+            # (the steady state depends on the cycles' starts and periods only:
+            # when the relaxed limit bridged no gap, pass 1 found it already)
+            if not (
+                np.array_equal(cyc.starts, first.starts)
+                and np.array_equal(cyc.periods, first.periods)
+            ):
+                found = _steady_state(
+                    cyc, tol=tol, edge=edge, min_cycles=steady_min_cycles, w=smoothing_cycles
+                )
     starts, periods, missed = cyc.starts, cyc.periods, cyc.missed
     rates = 1.0 / periods if periods.size else np.zeros(0)
     smooth = found.smooth
