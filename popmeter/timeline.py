@@ -386,7 +386,7 @@ def _median_pairwise_slope(t: np.ndarray, y: np.ndarray) -> float:
     rising = dt > 0
     slopes = (y[:, np.newaxis] - y)[rising] / dt[rising]
     if not slopes.size:
-        raise ValueError("All `x` coordinates are identical.")
+        raise ValueError("Theil-Sen slope: all times are equal, no slope")
     return float(np.median(slopes))
 
 
