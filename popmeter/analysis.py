@@ -21,7 +21,7 @@ import json
 import math
 import os
 import tempfile
-from dataclasses import asdict, dataclass, field, is_dataclass
+from dataclasses import asdict, dataclass, field, fields, is_dataclass
 from pathlib import Path
 from typing import Any
 
@@ -115,7 +115,7 @@ class Analysis:
                 }
                 for c in det.clicks
             ],
-            "cycles": [_plain(c) for c in self.timeline.cycles],
+            "cycles": _flat_dicts(self.timeline.cycles),
             "phases": [_plain(p) for p in self.timeline.phases],
             "stalls": [_plain(s) for s in self.timeline.stalls],
             "summary": dict(self.timeline.summary),
@@ -139,8 +139,22 @@ def _plain(obj: Any) -> Any:
     return obj
 
 
+def _flat_dicts(items: list[Any]) -> list[dict[str, Any]]:
+    """Dataclass instances of one type, their fields plain values (numbers,
+    strings), as dicts: what ``asdict`` gives for them, without its deep copies."""
+    if not items:
+        return []
+    names = [f.name for f in fields(items[0])]
+    return [{name: getattr(item, name) for name in names} for item in items]
+
+
 def _json_clean(value: Any) -> Any:
     """Recursively turn numpy scalars/arrays into Python, and NaN/inf into None."""
+    kind = type(value)
+    if kind is float:  # (the plain types first: most of a document)
+        return value if math.isfinite(value) else None
+    if kind is int or kind is str or value is None:
+        return value
     if isinstance(value, dict):
         return {str(k): _json_clean(v) for k, v in value.items()}
     if isinstance(value, (list, tuple)):

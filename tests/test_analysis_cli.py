@@ -150,3 +150,20 @@ def test_terminal_summary_is_readable(recording: Path) -> None:
     out = proc.stdout
     for label in ("steady rate", "first pop", "diaphragm stiffness", "kPa/mL", "Hz"):
         assert label in out
+
+
+def test_json_cycles_equal_dataclasses_asdict(recording: Path) -> None:
+    # reference: dataclasses.asdict, the general conversion the cycle rows skip
+    from dataclasses import asdict
+
+    from popmeter.analysis import _json_clean
+
+    analysis = analyze_file(recording)
+    cycles = analysis.timeline.cycles
+    assert cycles
+    rows = analysis.to_json()["cycles"]
+    reference = _json_clean([asdict(c) for c in cycles])
+    assert [list(r.items()) for r in rows] == [list(r.items()) for r in reference]  # key order too
+    # and the plain values pass through unchanged, NaN and infinities become null
+    assert _json_clean({"a": [1, "x", None, 2.5, float("nan"), float("-inf"), True]}) == {
+        "a": [1, "x", None, 2.5, None, None, True]}

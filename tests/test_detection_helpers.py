@@ -104,3 +104,35 @@ def test_scan_envelope_is_the_analytic_signal_of_the_filter_output(fs_d):
     ref = np.abs(signal.hilbert(y))[:scan.R * env.size:scan.R]
     assert env.size == -(-(scan.C + scan.E + scan.E2) // scan.R)
     assert np.max(np.abs(env - ref)) <= 1e-5 * np.max(ref)
+
+
+def test_copied_click_equals_copy_copy():
+    # reference: copy.copy (a shallow copy), compared field by field (dataclasses.fields)
+    import copy
+    import dataclasses
+
+    from popmeter.detection import Click, _copied
+
+    names = [f.name for f in dataclasses.fields(Click)]
+    # a distinct object in every field (a field added to Click and not copied fails here)
+    marked = Click(**{name: object() for name in names})
+    for c in (Click(1.25, 60000, -12.5, 21.0, 3150.0, 0.004, 1, 7),
+              Click(0.5, 24000, -30.0, 9.0, None, None), marked):
+        got, ref = _copied(c), copy.copy(c)
+        assert got is not c and type(got) is type(ref)
+        for name in names:
+            assert getattr(got, name) is getattr(ref, name)
+
+
+def test_log_distance_equals_one_value_at_a_time():
+    # reference: math.log and numpy's min of absolute differences, one value at a time
+    import math
+
+    from popmeter.detection import _log_distance
+
+    rng = np.random.default_rng(10)
+    values = rng.uniform(400.0, 9000.0, 300)
+    centres = np.log(rng.uniform(400.0, 9000.0, 3))
+    expected = [np.min(np.abs(math.log(v) - centres)) for v in values]
+    assert np.array_equal(_log_distance(values, centres), expected)
+    assert np.array_equal(_log_distance(values.tolist(), centres), expected)

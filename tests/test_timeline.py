@@ -15,7 +15,14 @@ import pytest
 from scipy import ndimage, stats
 
 from popmeter.errors import UsageError
-from popmeter.timeline import SUMMARY_KEYS, build_timeline, rolling_median
+from popmeter.timeline import (
+    SUMMARY_KEYS,
+    _block_medians,
+    _block_rates,
+    _median_pairwise_slope,
+    build_timeline,
+    rolling_median,
+)
 
 RATE_HZ = 12.0
 
@@ -177,6 +184,37 @@ def test_drift_recovers_linear_drift():
     run = make_run(steady_s=180.0, drift_pct_per_min=-3.0, jitter_pct=0.5, seed=3)
     tl = timeline_of(run["times"], run["duration_s"], steady_tolerance_pct=8.0)
     assert tl.summary["drift_pct_per_min"] == pytest.approx(-3.0, abs=0.3)
+
+
+def test_median_pairwise_slope_equals_scipy_theilslopes():
+    # scipy.stats.theilslopes as the outside reference: the same slope, bit for
+    # bit, on sorted and unsorted abscissae with ties.
+    rng = np.random.default_rng(21)
+    for n in (2, 3, 10, 257, 1000):
+        x_sorted = np.sort(rng.uniform(0.0, 300.0, n))
+        x_ties = np.round(rng.uniform(0.0, 20.0, n))
+        for x in (x_sorted, x_ties):
+            if np.ptp(x) == 0:
+                continue
+            y = 12.0 + 0.01 * x + rng.normal(0.0, 0.2, n)
+            assert _median_pairwise_slope(x, y) == stats.theilslopes(y, x).slope
+    with pytest.raises(ValueError):
+        _median_pairwise_slope(np.ones(4), np.arange(4.0))
+
+
+def test_block_statistics_equal_a_loop_over_numpy_array_split():
+    # numpy's array_split, median and sum, one part at a time, as the reference.
+    rng = np.random.default_rng(22)
+    for n, blocks in ((2000, 1000), (4321, 1000), (1000, 1000), (83, 10), (16, 2), (4001, 500)):
+        starts = np.cumsum(rng.uniform(0.05, 0.1, n))
+        periods = rng.uniform(0.05, 0.1, n)
+        parts = np.array_split(periods, blocks)
+        medians = [np.median(p) for p in parts]
+        assert np.array_equal(_block_medians(periods, blocks), medians)
+        mid, rate = _block_rates(starts, periods, blocks)
+        mid_ref = [t[0] + 0.5 * p.sum() for t, p in zip(np.array_split(starts, blocks), parts)]
+        assert np.array_equal(mid, mid_ref)
+        assert np.array_equal(rate, [p.size / p.sum() for p in parts])
 
 
 def test_steady_sem_is_close_to_textbook_standard_error():
