@@ -594,30 +594,46 @@ class ClickDetector:
         nf = rise.shape[0]
         z = np.zeros(nf)
         zb = np.zeros(nf, dtype=np.int64)
+        # the statistics are refreshed at fixed frames, each time from the
+        # levels before that frame: first the statistics in force per frame,
+        # then every frame gated at once
+        meds: list[np.ndarray] = []
+        gates: list[np.ndarray] = []
+        counts: list[int] = []
         t = f0
         end = f0 + nf
         while t < end:
             if self._is_update(t):
                 self._update_stats(t)
-            nxt = self._next_update(t)
-            seg_end = min(end, nxt)
+            seg_end = min(end, self._next_update(t))
             if self._have_stats:
-                r = rise[t - f0:seg_end - f0]
-                lev = levels[t - f0:seg_end - f0]
-                over = lev - self._med
-                # gates: a real rise, above the bin's robust spread, and not a
-                # window side-lobe of a far stronger bin (in near-silence the
-                # floor is so low that leakage would pass)
-                floor = np.maximum(lev.max(axis=1, keepdims=True) - _LEAK_DB, _ABS_FLOOR_DB)
-                ok = r >= self.min_rise_db
-                ok &= over >= self._gate
-                ok &= lev >= floor
-                zz = ov[t - f0:seg_end - f0]  # (zero where a gate fails)
-                np.copyto(zz, over, where=ok)
-                best = np.argmax(zz, axis=1)
-                z[t - f0:seg_end - f0] = zz[np.arange(zz.shape[0]), best]
-                zb[t - f0:seg_end - f0] = best
+                meds.append(self._med)
+                gates.append(self._gate)
+                counts.append(seg_end - t)
             t = seg_end
+        if not counts:
+            return z, zb
+        i0 = nf - sum(counts)  # the first frame with statistics
+        r = rise[i0:]
+        lev = levels[i0:]
+        if len(counts) == 1:
+            med, gate = meds[0], gates[0]
+        else:
+            med = np.repeat(np.stack(meds), counts, axis=0)
+            gate = np.repeat(np.stack(gates), counts, axis=0)
+        over = lev - med
+        # gates: a real rise, above the bin's robust spread, and not a window
+        # side-lobe of a far stronger bin (in near-silence the floor is so low
+        # that leakage would pass)
+        floor = np.maximum(lev.max(axis=1, keepdims=True) - _LEAK_DB, _ABS_FLOOR_DB)
+        ok = r >= self.min_rise_db
+        ok &= over >= gate
+        ok &= lev >= floor
+        zz = ov[i0:]  # (zero where a gate fails)
+        np.copyto(zz, over, where=ok)
+        best = np.argmax(zz, axis=1)
+        z[i0:] = zz[np.arange(zz.shape[0]), best]
+        zb[i0:] = best
         return z, zb
 
     def _is_update(self, t: int) -> bool:
@@ -693,35 +709,64 @@ class ClickDetector:
             near_strong = (np.maximum(left, right) >= thr) | (zh >= thr)
         else:
             strong = near_strong = np.zeros(0, dtype=bool)
-        typ_max, typ_for = None, None  # per frame, the largest value over the typical bins
-        for t, is_strong, busy in zip(hits.tolist(), strong.tolist(), near_strong.tolist()):
-            # learning checkpoint: the bins where the strong candidates before
-            # it rang; fixed frame numbers, so the same whatever the block size
-            if t >= self._next_cp:
-                cp = (t // self._checkpoint) * self._checkpoint
-                self._typ_current = self._typical_bins(cp)
-                self._next_cp = cp + self._checkpoint
-            if is_strong:
-                band = int(self._zb_hist[t - z0])
-                self._pending.append(_Candidate(t, float(z[t - z0]), band, True))
-                self._strong_hist.append((t, band))
-                if len(self._strong_hist) > 256:
-                    del self._strong_hist[:128]
-                continue
-            if busy or self._typ_current is None:
-                continue
-            a = max(z0, t - r)
-            b = min(self._frames, t + r + 1)
+        # learning checkpoints: the first hit at or after a checkpoint takes the
+        # bins where the strong candidates before the checkpoint rang; fixed
+        # frame numbers, so the same whatever the block size.  Between two
+        # checkpoints the typical bins stay, so the hits are judged by groups.
+        ck = self._checkpoint
+        group = hits // ck
+        cuts = (np.flatnonzero(np.diff(group)) + 1).tolist()
+        firsts = [0, *cuts] if hits.size else []
+        for i0, i1 in zip(firsts, [*cuts, hits.size]):
+            g = int(group[i0])
+            if g * ck >= self._next_cp:
+                self._typ_current = self._typical_bins(g * ck)
+                self._next_cp = (g + 1) * ck
+            t_g, strong_g = hits[i0:i1], strong[i0:i1]
+            # weak candidates, where no strong one is near: the largest value
+            # over the typical bins within +-r frames (earlier frames strictly
+            # lower, later ones not higher)
             typ = self._typ_current
-            if typ_for is not typ:  # (once per learning checkpoint, for all frames kept)
-                typ_max, typ_for = over[:, typ].max(axis=1), typ
-            wmax = typ_max[a - z0:b - z0]
-            zt2 = wmax[t - a]
-            if zt2 < weak or np.any(wmax[:t - a] >= zt2) or np.any(wmax[t - a + 1:] > zt2):
-                continue
-            band = int(typ[int(np.argmax(over[t - z0, typ]))])
-            rng = (float(self._bin_hz[typ[0]] - self._df), float(self._bin_hz[typ[-1]] + self._df))
-            self._pending.append(_Candidate(t, float(zt2), band, False, rng))
+            weak_g = np.zeros(t_g.size, dtype=bool)
+            if typ is not None:
+                maybe = np.flatnonzero(~near_strong[i0:i1])
+                if maybe.size:
+                    # per frame from r before the first to r after the last,
+                    # the largest value over the typical bins (-inf outside
+                    # the frames kept)
+                    tw = t_g[maybe] - z0
+                    a, b = int(tw[0]) - r, int(tw[-1]) + r + 1
+                    a_in, b_in = max(a, 0), min(b, over.shape[0])
+                    typ_max = np.full(b - a, -np.inf)
+                    typ_max[a_in - a:b_in - a] = over[a_in:b_in, typ].max(axis=1)
+                    tw -= a
+                    zt2 = typ_max[tw]
+                    left = typ_max[tw[:, None] + np.arange(-r, 0)[None, :]].max(axis=1)
+                    right = typ_max[tw[:, None] + np.arange(1, r + 1)[None, :]].max(axis=1)
+                    weak_g[maybe] = (zt2 >= weak) & (zt2 > left) & (zt2 >= right)
+            # the candidates in frame order: a strong one takes the detection
+            # function's value and bin, a weak one the largest typical bin's
+            sel = np.flatnonzero(strong_g | weak_g)
+            rows = t_g[sel] - z0
+            is_strong = strong_g[sel]
+            zc = z[rows]
+            bc = self._zb_hist[rows]
+            if not is_strong.all():  # (weak ones exist only with typical bins)
+                rng = (float(self._bin_hz[typ[0]] - self._df),
+                       float(self._bin_hz[typ[-1]] + self._df))
+                is_weak = ~is_strong
+                ov_typ = over[rows[is_weak][:, None], typ[None, :]]
+                zc[is_weak] = ov_typ.max(axis=1)
+                bc[is_weak] = typ[np.argmax(ov_typ, axis=1)]
+            for t, s_, z_c, b_c in zip((rows + z0).tolist(), is_strong.tolist(), zc.tolist(),
+                                       bc.tolist()):
+                if s_:
+                    self._pending.append(_Candidate(t, z_c, b_c, True))
+                    self._strong_hist.append((t, b_c))
+                else:
+                    self._pending.append(_Candidate(t, z_c, b_c, False, rng))
+            if len(self._strong_hist) > 256:  # (the same list as trimming after each append)
+                del self._strong_hist[:128 * ((len(self._strong_hist) - 129) // 128)]
         self._decided = upto
         keep_from = max(0, self._decided - r - 1)
         if keep_from > z0:
