@@ -333,6 +333,7 @@ class ClickDetector:
         # 0.42 of the decimated rate, where it still passes 4 dB down
         box = np.ones(self._q)
         self._aa = (np.convolve(box, box) / self._q ** 2).astype(np.float64)
+        self._aa32 = self._aa.astype(np.float32)  # (the taps as the filter applies them)
         self._aa_hist = np.zeros(len(self._aa) - 1, dtype=np.float32)
 
         # watched frequency range: one STFT bin per detection channel
@@ -471,9 +472,12 @@ class ClickDetector:
         x = np.asarray(block, dtype=np.float32).reshape(-1)
         if x.size == 0:
             return []
-        if not np.all(np.isfinite(x)):
+        lo, hi = x.min(), x.max()  # (NaN if any sample is)
+        if not (np.isfinite(lo) and np.isfinite(hi)):
             x = np.nan_to_num(x, nan=0.0, posinf=1.0, neginf=-1.0)
-        self.clipped_samples += int(np.count_nonzero(np.abs(x) >= 0.9999))
+            lo, hi = x.min(), x.max()
+        if hi >= 0.9999 or lo <= -0.9999:
+            self.clipped_samples += int(np.count_nonzero(np.abs(x) >= 0.9999))
         start = self.samples_seen
         self.samples_seen += x.size
         self._x = np.concatenate([self._x, x])
@@ -490,9 +494,10 @@ class ClickDetector:
             # output at input index i: sum_j h[j] x[i - j] (causal FIR); in ext,
             # input index i sits at i + taps - 1
             dec = np.zeros(count, dtype=np.float32)
+            term = np.empty(count, dtype=np.float32)
             for j in range(taps):
-                lo = first + taps - 1 - j
-                dec += np.float32(self._aa[j]) * ext[lo:lo + (count - 1) * q + 1:q]
+                at = first + taps - 1 - j
+                dec += np.multiply(self._aa32[j], ext[at:at + (count - 1) * q + 1:q], out=term)
         else:
             dec = x
         self._d = np.concatenate([self._d, dec])
@@ -657,8 +662,11 @@ class ClickDetector:
             if end <= f0:
                 break
             start = max(f0, end - w)
-            idx = np.arange(start, end) % w
-            self._lev_ring[idx] = lv[start - f0:end - f0]
+            # rows start % w onwards, wrapping round to row 0
+            at = start % w
+            n_end = min(end - start, w - at)
+            self._lev_ring[at:at + n_end] = lv[start - f0:start - f0 + n_end]
+            self._lev_ring[:end - start - n_end] = lv[start - f0 + n_end:end - f0]
             if end == f0 + lv.shape[0]:
                 self._lev_pending.pop(0)
             else:
@@ -670,9 +678,11 @@ class ClickDetector:
         rows = self._lev_ring[:t] if t < self._stat_win else self._lev_ring
         rows = rows[::8] if rows.shape[0] >= 400 else rows
         rows = np.ascontiguousarray(rows.T)  # bins x frames (order is irrelevant to a median)
-        h = rows.shape[1] // 2  # the (upper) median as an order statistic: fast partition
-        med = np.partition(rows, h, axis=1)[:, h]
-        mad = np.partition(np.abs(rows - med[:, None]), h, axis=1)[:, h]
+        # the (upper) median as an order statistic; numpy's vectorised sort of
+        # these short rows is faster than its partition
+        h = rows.shape[1] // 2
+        med = np.sort(rows, axis=1)[:, h]
+        mad = np.sort(np.abs(rows - med[:, None]), axis=1)[:, h]
         self._med = med.astype(np.float32)
         self._sig = np.maximum(_MAD_TO_SIGMA * mad, 0.5).astype(np.float32)
         self._gate = (self._k_mad * self._sig).astype(np.float32)
@@ -862,15 +872,20 @@ class ClickDetector:
         band_e = np.abs(cs[:, nav:nav + search] - cs[:, :search])
         pk = s0 + np.argmax(band_e, axis=1)
         # fine: AIC change point (Maeda 1985) on the broadband y[pk - pre, pk + post)
-        j = _aic_split(_rows(y, pk - self._pre, self._pre + self._post))
+        j = _aic_split_rows(_rows(y, pk - self._pre, self._pre + self._post))
         on_local = pk - self._pre + j  # index in y rows of the onset
         onsets = w0 + on_local
         feats = self._features(y, on_local, onsets)
-        # (array features are read as numpy scalars: a float32 feature meets its
-        # threshold in float32)
         level, rings, decays, attack, tonality, ring_snr, ring_snr_short = (
             feats["level_dbfs"], feats["ring_hz"], feats["decay_s"], feats["attack_s"],
             feats["tonality_db"], feats["ring_snr_db"], feats["ring_snr_short_db"])
+        # the tests on whole arrays (a float32 feature meets its threshold in
+        # float32, as numpy compares an array with a Python float)
+        fails = ((attack > self.max_attack_s) | (tonality < self.min_tonality_db)
+                 | (ring_snr < self.min_ring_snr_db)).tolist()
+        quick = (attack <= self.max_attack_s).tolist()
+        short_ok = (ring_snr_short >= self.min_ring_snr_db - 2.0).tolist()
+        levels = level.tolist()
         clicks: list[Click] = []
         for i, (c, onset) in enumerate(zip(cands, onsets.tolist())):
             if onset - self._last_onset < self._post:
@@ -881,8 +896,7 @@ class ClickDetector:
             ring = rings[i]
             ok = True
             if self.reject:
-                if (attack[i] > self.max_attack_s or tonality[i] < self.min_tonality_db
-                        or ring_snr[i] < self.min_ring_snr_db):
+                if fails[i]:
                     ok = False
                 elif not c.strong:
                     rr = c.ring_range_hz
@@ -890,22 +904,19 @@ class ClickDetector:
             if not ok:
                 self.rejected += 1
                 self.rejected_times_s.append(onset / fs)
-                if (self.reject and ring is not None and attack[i] <= self.max_attack_s
-                        and (c.strong or ring_snr_short[i] >= self.min_ring_snr_db - 2.0)
+                if (self.reject and ring is not None and quick[i] and (c.strong or short_ok[i])
                         and len(self._second_look) < 200000):
                     if self._mf is not None:
                         self._mf.note_click(onset, accepted=False)
                     self._second_look.append(Click(
-                        time_s=onset / fs, sample=onset,
-                        level_dbfs=round(float(level[i]), 3),
+                        time_s=onset / fs, sample=onset, level_dbfs=round(levels[i], 3),
                         strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
                 continue
             self._last_onset = onset
             if self._mf is not None:
                 self._mf.note_click(onset)
             self._bin_votes[c.band] += 1
-            clicks.append(Click(time_s=onset / fs, sample=onset,
-                                level_dbfs=round(float(level[i]), 3),
+            clicks.append(Click(time_s=onset / fs, sample=onset, level_dbfs=round(levels[i], 3),
                                 strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
         return clicks
 
@@ -1029,10 +1040,11 @@ class ClickDetector:
             sxx = (dt * dt).sum(axis=1)
             sxy = (dt * (env_db - my[:, None])).sum(axis=1)
             slope = np.where(sxx > 0, sxy / np.where(sxx > 0, sxx, 1.0), 0.0)
-            for i in np.nonzero((cnt >= 3) & (slope < 0))[0]:
-                decay[int(sel_rows[i])] = float(-_DB_PER_NEPER / slope[i])
-        return {"level_dbfs": level, "ring_hz": [float(r) if np.isfinite(r) else None
-                                                 for r in ring],
+            fit = np.nonzero((cnt >= 3) & (slope < 0))[0]
+            for i, d_s in zip(sel_rows[fit].tolist(), (-_DB_PER_NEPER / slope[fit]).tolist()):
+                decay[i] = d_s
+        return {"level_dbfs": level, "ring_hz": [r if math.isfinite(r) else None
+                                                 for r in ring.tolist()],
                 "decay_s": decay, "attack_s": attack, "tonality_db": tonality,
                 "ring_snr_db": ring_snr, "ring_snr_short_db": ring_snr_s}
 
@@ -1050,6 +1062,28 @@ class ClickDetector:
     def _hp_corner(self) -> float:
         """Lowest frequency (Hz) the refinement stream keeps: the high-pass corner."""
         return float(self._hp_hz)
+
+
+def _aic_split_rows(aw: np.ndarray) -> np.ndarray:
+    """:func:`_aic_split` of many rows, the same values with less work.
+
+    The criterion is evaluated only where the minimum is searched (first
+    segments of 2 .. n - 4 samples) and the segment lengths are float64 from
+    the start (numpy casts the integer lengths to float64 in every division
+    and product otherwise); every value is computed by the same operations in
+    the same order, so the split is the same to the sample.
+    """
+    n = aw.shape[1]
+    c1 = np.cumsum(aw, axis=1)
+    c2 = np.cumsum(aw * aw, axis=1)
+    kk = np.arange(2, n - 3, dtype=np.float64)  # length of the first segment
+    nk = n - kk
+    s1, q1 = c1[:, 1:n - 4], c2[:, 1:n - 4]
+    s2, q2 = c1[:, -1:] - s1, c2[:, -1:] - q1
+    var1 = np.maximum(q1 / kk - (s1 / kk) ** 2, 1e-30)
+    var2 = np.maximum(q2 / nk - (s2 / nk) ** 2, 1e-30)
+    aic = kk * np.log(var1) + (nk - 1) * np.log(var2)
+    return 2 + np.argmin(aic, axis=1)
 
 
 class _TemplateScan:

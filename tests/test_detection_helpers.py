@@ -3,7 +3,16 @@
 import numpy as np
 import pytest
 
-from popmeter.detection import _cover, _local_periods, _percentile, _row_dots, _rows
+from popmeter.detection import (
+    ClickDetector,
+    _aic_split,
+    _aic_split_rows,
+    _cover,
+    _local_periods,
+    _percentile,
+    _row_dots,
+    _rows,
+)
 
 
 @pytest.mark.parametrize("q", [5, 10, 25, 50, 75, 90, 95])
@@ -77,3 +86,37 @@ def test_row_dots_equals_matmul():
         assert got.shape == (k, 130)
         ref = a.astype(np.float64) @ b.astype(np.float64).T
         assert np.allclose(got, ref, rtol=0, atol=1e-4 * max(1.0, float(np.abs(ref).max(initial=0))))
+
+
+def test_aic_split_rows_equals_aic_split():
+    # reference: _aic_split, the direct cumulative-sum form of the AIC picker
+    # (Maeda 1985; Sleeman & van Eck, PEPI 1999), row by row
+    rng = np.random.default_rng(11)
+    for n in (12, 40, 432):
+        for _ in range(40):
+            k = int(rng.integers(1, 30))
+            aw = (rng.standard_normal((k, n)) * 10.0 ** rng.uniform(-5, 0)).astype(np.float32)
+            onset = rng.integers(2, n - 2, k)
+            aw[np.arange(n)[None, :] >= onset[:, None]] *= rng.uniform(1.0, 50.0)
+            if rng.integers(4) == 0:
+                aw[0] = 0.0  # a silent row: every variance at its floor
+            got = _aic_split_rows(aw)
+            assert np.array_equal(got, np.concatenate([_aic_split(r[None, :]) for r in aw]))
+            assert np.array_equal(got, _aic_split(aw))
+
+
+def test_clipped_count_equals_numpy_count():
+    # reference: numpy's count of |x| >= 0.9999 after numpy.nan_to_num, over every block
+    rng = np.random.default_rng(12)
+    det = ClickDetector(48000.0, template_scan=False)
+    expected = 0
+    for size in (1, 500, 4096, 3, 20000):
+        x = (rng.uniform(-1.001, 1.001, size)).astype(np.float32)
+        x[rng.integers(0, size, max(1, size // 50))] = np.float32(0.9999)
+        if size > 3:
+            x[rng.integers(0, size, 3)] = [np.nan, np.inf, -np.inf]
+        clean = np.nan_to_num(x, nan=0.0, posinf=1.0, neginf=-1.0)
+        expected += int(np.count_nonzero(np.abs(clean) >= np.float32(0.9999)))
+        det.process(x)
+        assert det.clipped_samples == expected
+    assert expected > 0
