@@ -600,8 +600,8 @@ class ClickDetector:
         z = np.zeros(nf)
         zb = np.zeros(nf, dtype=np.int64)
         # the statistics are refreshed at fixed frames, each time from the
-        # levels before that frame: first the statistics in force per frame,
-        # then every frame gated at once
+        # levels before that frame: first the statistics in force in each
+        # stretch of frames, then the frames gated together
         meds: list[np.ndarray] = []
         gates: list[np.ndarray] = []
         counts: list[int] = []
@@ -621,18 +621,18 @@ class ClickDetector:
         i0 = nf - sum(counts)  # the first frame with statistics
         r = rise[i0:]
         lev = levels[i0:]
-        if len(counts) == 1:
-            med, gate = meds[0], gates[0]
-        else:
-            med = np.repeat(np.stack(meds), counts, axis=0)
-            gate = np.repeat(np.stack(gates), counts, axis=0)
-        over = lev - med
         # gates: a real rise, above the bin's robust spread, and not a window
         # side-lobe of a far stronger bin (in near-silence the floor is so low
         # that leakage would pass)
+        over = np.empty_like(lev)
+        ok = np.empty(lev.shape, dtype=bool)
+        a = 0
+        for med, gate, count in zip(meds, gates, counts):
+            np.subtract(lev[a:a + count], med, out=over[a:a + count])
+            np.greater_equal(over[a:a + count], gate, out=ok[a:a + count])
+            a += count
         floor = np.maximum(lev.max(axis=1, keepdims=True) - _LEAK_DB, _ABS_FLOOR_DB)
-        ok = r >= self.min_rise_db
-        ok &= over >= gate
+        ok &= r >= self.min_rise_db
         ok &= lev >= floor
         zz = ov[i0:]  # (zero where a gate fails)
         np.copyto(zz, over, where=ok)
@@ -835,19 +835,20 @@ class ClickDetector:
             self._x0 = first
         return out
 
-    def _window(self, starts: np.ndarray, length: int, *, high_passed: bool = False
-                ) -> np.ndarray:
-        """Rows x[start:start + length] of the kept raw samples, zero outside."""
-        x, x0 = (self._y if high_passed else self._x), self._x0
-        rel = starts - x0
-        if rel.size and rel.min() >= 0 and rel.max() + length <= x.size:  # (the usual case)
-            return _rows(x, rel, length)
-        out = np.zeros((len(starts), length), dtype=np.float32)
-        for i, st in enumerate(rel.tolist()):
-            a, b = max(st, 0), min(st + length, x.size)
-            if b > a:
-                out[i, a - st:b - st] = x[a:b]
-        return out
+    def _span(self, starts: np.ndarray, length: int, *, high_passed: bool = False
+              ) -> tuple[np.ndarray, np.ndarray]:
+        """The kept samples (raw or high-passed) and where each window starts in them.
+
+        Window i, the stream's samples [starts[i], starts[i] + length) with
+        zeros outside the kept ones, is ``buf[at[i]:at[i] + length]``.
+        """
+        x = self._y if high_passed else self._x
+        at = starts - self._x0
+        if not at.size or (at.min() >= 0 and at.max() + length <= x.size):  # (the usual case)
+            return x, at
+        pad_lo, pad_hi = max(0, -int(at.min())), max(0, int(at.max()) + length - x.size)
+        return (np.concatenate([np.zeros(pad_lo, dtype=np.float32), x,
+                                np.zeros(pad_hi, dtype=np.float32)]), at + pad_lo)
 
     def _measure(self, cands: list[_Candidate]) -> list[Click]:
         """Onset, features and the click-or-not decision of candidates, in one batch."""
@@ -859,7 +860,7 @@ class ClickDetector:
         lead = self._tail + self._pre + 2 * self.hop
         length = lead + search + self._tail + self._post
         w0 = frames * self.hop - lead
-        y = self._window(w0, length, high_passed=True)
+        y, y_at = self._span(w0, length, high_passed=True)  # window i: y[y_at[i]:][:length]
         s0 = lead
         # coarse: the peak of the energy of the band where the candidate rang
         # within the frame holding the rise (complex demodulation at the bin's
@@ -867,15 +868,15 @@ class ClickDetector:
         # holds far more of the click than the broadband signal, whose own
         # peak may be noise
         nav = self._bp_len
-        seg = y[:, s0 - nav // 2:s0 + search + nav - nav // 2]
+        seg = _rows(y, y_at + s0 - nav // 2, search + nav)
         cs = np.cumsum(seg * self._demod[[c.band for c in cands]], axis=1)
         band_e = np.abs(cs[:, nav:nav + search] - cs[:, :search])
         pk = s0 + np.argmax(band_e, axis=1)
-        # fine: AIC change point (Maeda 1985) on the broadband y[pk - pre, pk + post)
-        j = _aic_split_rows(_rows(y, pk - self._pre, self._pre + self._post))
-        on_local = pk - self._pre + j  # index in y rows of the onset
+        # fine: AIC change point (Maeda 1985) on the broadband window [pk - pre, pk + post)
+        j = _aic_split_rows(_rows(y, y_at + pk - self._pre, self._pre + self._post))
+        on_local = pk - self._pre + j  # index of the onset in its window
         onsets = w0 + on_local
-        feats = self._features(y, on_local, onsets)
+        feats = self._features(y, y_at + on_local, onsets)
         level, rings, decays, attack, tonality, ring_snr, ring_snr_short = (
             feats["level_dbfs"], feats["ring_hz"], feats["decay_s"], feats["attack_s"],
             feats["tonality_db"], feats["ring_snr_db"], feats["ring_snr_short_db"])
@@ -921,13 +922,14 @@ class ClickDetector:
         return clicks
 
     def _features(self, y: np.ndarray, on: np.ndarray, onsets: np.ndarray) -> dict:
-        """Per-click features from the high-passed rows ``y`` (onset at column ``on``)."""
+        """Per-click features from the high-passed samples ``y`` (onsets at ``y[on]``)."""
         fs = self.sample_rate_hz
-        k = y.shape[0]
+        k = on.size
         m = self._tail
         gap = int(0.0005 * fs)
         # level: peak of the raw signal within 5 ms of the onset
-        raw = self._window(onsets, int(0.005 * fs))
+        n_raw = int(0.005 * fs)
+        raw = _rows(*self._span(onsets, n_raw), n_raw)
         level = 20 * np.log10(np.maximum(np.max(np.abs(raw), axis=1), 1e-10))
         tail = _rows(y, on, m)
         pre = _rows(y, on - gap - m, m)
@@ -1012,7 +1014,7 @@ class ClickDetector:
 
             blk = max(1, round(0.0005 * fs))
             nab = 20
-            first = _rows(y, on[sel_rows], nab * blk, sel_rows)
+            first = _rows(y, on[sel_rows], nab * blk)
             env = block_env(first, blk)
             attack = np.ones(k)
             attack[sel_rows] = (np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1)
@@ -1021,7 +1023,7 @@ class ClickDetector:
             nb = m // blk2
             env_t = block_env(tail[sel_rows], blk2)
             npb = self._pre // blk2
-            pre_d = _rows(y, on[sel_rows] - gap - npb * blk2, npb * blk2, sel_rows)
+            pre_d = _rows(y, on[sel_rows] - gap - npb * blk2, npb * blk2)
             env_p = block_env(pre_d, blk2)
             env_db = 20 * np.log10(env_t + 1e-12)
             floor_db = 10 * np.log10(np.mean(env_p ** 2, axis=1) + 1e-24) + 6.0

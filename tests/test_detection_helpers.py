@@ -120,3 +120,21 @@ def test_clipped_count_equals_numpy_count():
         det.process(x)
         assert det.clipped_samples == expected
     assert expected > 0
+
+
+def test_span_windows_are_the_stream_with_zeros_outside():
+    # reference: the stream's kept samples zero-padded with numpy.pad, sliced directly
+    rng = np.random.default_rng(13)
+    det = ClickDetector(48000.0, template_scan=False)
+    x = rng.standard_normal(30000).astype(np.float32) * 0.01
+    det.process(x)
+    kept_from = det._x0
+    assert 0 < kept_from < x.size - 1000  # (some samples dropped, some kept)
+    n = 700
+    padded = np.pad(x[kept_from:], 2 * n)
+    for starts in ([kept_from + 5, kept_from + 100], [kept_from - 50, kept_from + 10],
+                   [x.size - 100, kept_from + 1], [kept_from - n - 3, x.size + 2]):
+        starts = np.array(starts, dtype=np.int64)
+        buf, at = det._span(starts, n)
+        want = np.array([padded[s - kept_from + 2 * n:][:n] for s in starts.tolist()])
+        assert np.array_equal(_rows(buf, at, n), want)
