@@ -12,6 +12,7 @@ from popmeter.detection import (
     _percentile,
     _row_dots,
     _rows,
+    _with_neighbours,
 )
 
 
@@ -138,3 +139,15 @@ def test_span_windows_are_the_stream_with_zeros_outside():
         buf, at = det._span(starts, n)
         want = np.array([padded[s - kept_from + 2 * n:][:n] for s in starts.tolist()])
         assert np.array_equal(_rows(buf, at, n), want)
+
+
+def test_with_neighbours_equals_numpy_roll():
+    # reference: numpy.roll one bin each way (circular)
+    rng = np.random.default_rng(14)
+    for n in (0, 1, 2, 3, 5, 81):
+        for _ in range(50):
+            sel = rng.random(n) < rng.uniform(0.0, 0.5)
+            want = sel | np.roll(sel, 1) | np.roll(sel, -1)
+            got = _with_neighbours(sel)
+            assert np.array_equal(got, want)
+            assert got is not sel
