@@ -810,14 +810,13 @@ class ClickDetector:
 
     def _finalise(self, *, final: bool) -> list[Click]:
         total = self.samples_seen
-        ready: list[_Candidate] = []
-        while self._pending:
-            c = self._pending[0]
-            need = (c.frame * self.hop + self._frame_span + 3 * self.hop + self._tail
-                    + self._post)  # the end of its window (_measure)
-            if need > total and not final:
-                break
-            ready.append(self._pending.pop(0))
+        # the candidates (in frame order) whose window (_measure) ends within
+        # the samples seen: frame * hop + span + 3 hop + tail + post <= total
+        last = (total - self._frame_span - 3 * self.hop - self._tail - self._post) // self.hop
+        n_ready = (len(self._pending) if final
+                   else bisect.bisect_right(self._pending, last, key=lambda c: c.frame))
+        ready = self._pending[:n_ready]
+        del self._pending[:n_ready]
         if ready:
             self._out.extend(self._measure(ready))
         out, self._out = self._out, []
