@@ -1001,24 +1001,27 @@ class ClickDetector:
         if have.any():
             sel_rows = np.nonzero(have)[0]
             w = (-2j * math.pi * ring[sel_rows] / fs)[:, None]
+            blk = max(1, round(0.0005 * fs))
+            blk2 = 2 * blk
+            # exp(-i w n) over the longer blocks; its first blk columns serve the
+            # shorter ones
+            phasor = np.exp(w * np.arange(blk2)[None, :]).astype(np.complex64)
+            phasors = {blk2: phasor, blk: np.ascontiguousarray(phasor[:, :blk])}
 
             def block_env(sig: np.ndarray, blk: int) -> np.ndarray:
                 # |mean over each block of sig * exp(-i w n)|: the phase that
                 # carries over from block to block has modulus one, so one
                 # block-long phasor serves every block
                 nbk = sig.shape[1] // blk
-                base = np.exp(w * np.arange(blk)[None, :]).astype(np.complex64)
                 xb = sig[:, :nbk * blk].reshape(sig.shape[0], nbk, blk)
-                return np.abs(np.einsum("kjb,kb->kj", xb, base)) / blk
+                return np.abs(np.einsum("kjb,kb->kj", xb, phasors[blk])) / blk
 
-            blk = max(1, round(0.0005 * fs))
             nab = 20
             first = _rows(y, on[sel_rows], nab * blk)
             env = block_env(first, blk)
             attack = np.ones(k)
             attack[sel_rows] = (np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1)
                                 * blk / fs)
-            blk2 = 2 * blk
             nb = m // blk2
             env_t = block_env(tail[sel_rows], blk2)
             npb = self._pre // blk2
