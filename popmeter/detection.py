@@ -332,6 +332,7 @@ class ClickDetector:
         # 0.42 of the decimated rate, where it still passes 4 dB down
         box = np.ones(self._q)
         self._aa = (np.convolve(box, box) / self._q ** 2).astype(np.float64)
+        self._aa32 = self._aa.astype(np.float32)  # (the taps as the filter applies them)
         self._aa_hist = np.zeros(len(self._aa) - 1, dtype=np.float32)
 
         # watched frequency range: one STFT bin per detection channel
@@ -470,9 +471,12 @@ class ClickDetector:
         x = np.asarray(block, dtype=np.float32).reshape(-1)
         if x.size == 0:
             return []
-        if not np.all(np.isfinite(x)):
+        lo, hi = x.min(), x.max()  # (NaN if any sample is)
+        if not (np.isfinite(lo) and np.isfinite(hi)):
             x = np.nan_to_num(x, nan=0.0, posinf=1.0, neginf=-1.0)
-        self.clipped_samples += int(np.count_nonzero(np.abs(x) >= 0.9999))
+            lo, hi = x.min(), x.max()
+        if hi >= 0.9999 or lo <= -0.9999:
+            self.clipped_samples += int(np.count_nonzero(np.abs(x) >= 0.9999))
         start = self.samples_seen
         self.samples_seen += x.size
         self._x = np.concatenate([self._x, x])
@@ -489,9 +493,10 @@ class ClickDetector:
             # output at input index i: sum_j h[j] x[i - j] (causal FIR); in ext,
             # input index i sits at i + taps - 1
             dec = np.zeros(count, dtype=np.float32)
+            term = np.empty(count, dtype=np.float32)
             for j in range(taps):
-                lo = first + taps - 1 - j
-                dec += np.float32(self._aa[j]) * ext[lo:lo + (count - 1) * q + 1:q]
+                at = first + taps - 1 - j
+                dec += np.multiply(self._aa32[j], ext[at:at + (count - 1) * q + 1:q], out=term)
         else:
             dec = x
         self._d = np.concatenate([self._d, dec])
@@ -593,30 +598,46 @@ class ClickDetector:
         nf = rise.shape[0]
         z = np.zeros(nf)
         zb = np.zeros(nf, dtype=np.int64)
+        # the statistics are refreshed at fixed frames, each time from the
+        # levels before that frame: first the statistics in force in each
+        # stretch of frames, then the frames gated together
+        meds: list[np.ndarray] = []
+        gates: list[np.ndarray] = []
+        counts: list[int] = []
         t = f0
         end = f0 + nf
         while t < end:
             if self._is_update(t):
                 self._update_stats(t)
-            nxt = self._next_update(t)
-            seg_end = min(end, nxt)
+            seg_end = min(end, self._next_update(t))
             if self._have_stats:
-                r = rise[t - f0:seg_end - f0]
-                lev = levels[t - f0:seg_end - f0]
-                over = lev - self._med
-                # gates: a real rise, above the bin's robust spread, and not a
-                # window side-lobe of a far stronger bin (in near-silence the
-                # floor is so low that leakage would pass)
-                floor = np.maximum(lev.max(axis=1, keepdims=True) - _LEAK_DB, _ABS_FLOOR_DB)
-                ok = r >= self.min_rise_db
-                ok &= over >= self._gate
-                ok &= lev >= floor
-                zz = ov[t - f0:seg_end - f0]  # (zero where a gate fails)
-                np.copyto(zz, over, where=ok)
-                best = np.argmax(zz, axis=1)
-                z[t - f0:seg_end - f0] = zz[np.arange(zz.shape[0]), best]
-                zb[t - f0:seg_end - f0] = best
+                meds.append(self._med)
+                gates.append(self._gate)
+                counts.append(seg_end - t)
             t = seg_end
+        if not counts:
+            return z, zb
+        i0 = nf - sum(counts)  # the first frame with statistics
+        r = rise[i0:]
+        lev = levels[i0:]
+        # gates: a real rise, above the bin's robust spread, and not a window
+        # side-lobe of a far stronger bin (in near-silence the floor is so low
+        # that leakage would pass)
+        over = np.empty_like(lev)
+        ok = np.empty(lev.shape, dtype=bool)
+        a = 0
+        for med, gate, count in zip(meds, gates, counts):
+            np.subtract(lev[a:a + count], med, out=over[a:a + count])
+            np.greater_equal(over[a:a + count], gate, out=ok[a:a + count])
+            a += count
+        floor = np.maximum(lev.max(axis=1, keepdims=True) - _LEAK_DB, _ABS_FLOOR_DB)
+        ok &= r >= self.min_rise_db
+        ok &= lev >= floor
+        zz = ov[i0:]  # (zero where a gate fails)
+        np.copyto(zz, over, where=ok)
+        best = np.argmax(zz, axis=1)
+        z[i0:] = zz[np.arange(zz.shape[0]), best]
+        zb[i0:] = best
         return z, zb
 
     def _is_update(self, t: int) -> bool:
@@ -640,8 +661,11 @@ class ClickDetector:
             if end <= f0:
                 break
             start = max(f0, end - w)
-            idx = np.arange(start, end) % w
-            self._lev_ring[idx] = lv[start - f0:end - f0]
+            # rows start % w onwards, wrapping round to row 0
+            at = start % w
+            n_end = min(end - start, w - at)
+            self._lev_ring[at:at + n_end] = lv[start - f0:start - f0 + n_end]
+            self._lev_ring[:end - start - n_end] = lv[start - f0 + n_end:end - f0]
             if end == f0 + lv.shape[0]:
                 self._lev_pending.pop(0)
             else:
@@ -653,9 +677,11 @@ class ClickDetector:
         rows = self._lev_ring[:t] if t < self._stat_win else self._lev_ring
         rows = rows[::8] if rows.shape[0] >= 400 else rows
         rows = np.ascontiguousarray(rows.T)  # bins x frames (order is irrelevant to a median)
-        h = rows.shape[1] // 2  # the (upper) median as an order statistic: fast partition
-        med = np.partition(rows, h, axis=1)[:, h]
-        mad = np.partition(np.abs(rows - med[:, None]), h, axis=1)[:, h]
+        # the (upper) median as an order statistic; numpy's vectorised sort of
+        # these short rows is faster than its partition
+        h = rows.shape[1] // 2
+        med = np.sort(rows, axis=1)[:, h]
+        mad = np.sort(np.abs(rows - med[:, None]), axis=1)[:, h]
         self._med = med.astype(np.float32)
         self._sig = np.maximum(_MAD_TO_SIGMA * mad, 0.5).astype(np.float32)
         self._gate = (self._k_mad * self._sig).astype(np.float32)
@@ -692,35 +718,64 @@ class ClickDetector:
             near_strong = (np.maximum(left, right) >= thr) | (zh >= thr)
         else:
             strong = near_strong = np.zeros(0, dtype=bool)
-        typ_max, typ_for = None, None  # per frame, the largest value over the typical bins
-        for t, is_strong, busy in zip(hits.tolist(), strong.tolist(), near_strong.tolist()):
-            # learning checkpoint: the bins where the strong candidates before
-            # it rang; fixed frame numbers, so the same whatever the block size
-            if t >= self._next_cp:
-                cp = (t // self._checkpoint) * self._checkpoint
-                self._typ_current = self._typical_bins(cp)
-                self._next_cp = cp + self._checkpoint
-            if is_strong:
-                band = int(self._zb_hist[t - z0])
-                self._pending.append(_Candidate(t, float(z[t - z0]), band, True))
-                self._strong_hist.append((t, band))
-                if len(self._strong_hist) > 256:
-                    del self._strong_hist[:128]
-                continue
-            if busy or self._typ_current is None:
-                continue
-            a = max(z0, t - r)
-            b = min(self._frames, t + r + 1)
+        # learning checkpoints: the first hit at or after a checkpoint takes the
+        # bins where the strong candidates before the checkpoint rang; fixed
+        # frame numbers, so the same whatever the block size.  Between two
+        # checkpoints the typical bins stay, so the hits are judged by groups.
+        ck = self._checkpoint
+        group = hits // ck
+        cuts = (np.flatnonzero(np.diff(group)) + 1).tolist()
+        firsts = [0, *cuts] if hits.size else []
+        for i0, i1 in zip(firsts, [*cuts, hits.size]):
+            g = int(group[i0])
+            if g * ck >= self._next_cp:
+                self._typ_current = self._typical_bins(g * ck)
+                self._next_cp = (g + 1) * ck
+            t_g, strong_g = hits[i0:i1], strong[i0:i1]
+            # weak candidates, where no strong one is near: the largest value
+            # over the typical bins within +-r frames (earlier frames strictly
+            # lower, later ones not higher)
             typ = self._typ_current
-            if typ_for is not typ:  # (once per learning checkpoint, for all frames kept)
-                typ_max, typ_for = over[:, typ].max(axis=1), typ
-            wmax = typ_max[a - z0:b - z0]
-            zt2 = wmax[t - a]
-            if zt2 < weak or np.any(wmax[:t - a] >= zt2) or np.any(wmax[t - a + 1:] > zt2):
-                continue
-            band = int(typ[int(np.argmax(over[t - z0, typ]))])
-            rng = (float(self._bin_hz[typ[0]] - self._df), float(self._bin_hz[typ[-1]] + self._df))
-            self._pending.append(_Candidate(t, float(zt2), band, False, rng))
+            weak_g = np.zeros(t_g.size, dtype=bool)
+            if typ is not None:
+                maybe = np.flatnonzero(~near_strong[i0:i1])
+                if maybe.size:
+                    # per frame from r before the first to r after the last,
+                    # the largest value over the typical bins (-inf outside
+                    # the frames kept)
+                    tw = t_g[maybe] - z0
+                    a, b = int(tw[0]) - r, int(tw[-1]) + r + 1
+                    a_in, b_in = max(a, 0), min(b, over.shape[0])
+                    typ_max = np.full(b - a, -np.inf)
+                    typ_max[a_in - a:b_in - a] = over[a_in:b_in, typ].max(axis=1)
+                    tw -= a
+                    zt2 = typ_max[tw]
+                    left = typ_max[tw[:, None] + np.arange(-r, 0)[None, :]].max(axis=1)
+                    right = typ_max[tw[:, None] + np.arange(1, r + 1)[None, :]].max(axis=1)
+                    weak_g[maybe] = (zt2 >= weak) & (zt2 > left) & (zt2 >= right)
+            # the candidates in frame order: a strong one takes the detection
+            # function's value and bin, a weak one the largest typical bin's
+            sel = np.flatnonzero(strong_g | weak_g)
+            rows = t_g[sel] - z0
+            is_strong = strong_g[sel]
+            zc = z[rows]
+            bc = self._zb_hist[rows]
+            if not is_strong.all():  # (weak ones exist only with typical bins)
+                rng = (float(self._bin_hz[typ[0]] - self._df),
+                       float(self._bin_hz[typ[-1]] + self._df))
+                is_weak = ~is_strong
+                ov_typ = over[rows[is_weak][:, None], typ[None, :]]
+                zc[is_weak] = ov_typ.max(axis=1)
+                bc[is_weak] = typ[np.argmax(ov_typ, axis=1)]
+            for t, s_, z_c, b_c in zip((rows + z0).tolist(), is_strong.tolist(), zc.tolist(),
+                                       bc.tolist()):
+                if s_:
+                    self._pending.append(_Candidate(t, z_c, b_c, True))
+                    self._strong_hist.append((t, b_c))
+                else:
+                    self._pending.append(_Candidate(t, z_c, b_c, False, rng))
+            if len(self._strong_hist) > 256:  # (the same list as trimming after each append)
+                del self._strong_hist[:128 * ((len(self._strong_hist) - 129) // 128)]
         self._decided = upto
         keep_from = max(0, self._decided - r - 1)
         if keep_from > z0:
@@ -746,7 +801,7 @@ class ClickDetector:
         sel = counts >= need
         if not sel.any():
             sel = counts == counts.max()
-        sel = sel | np.roll(sel, 1) | np.roll(sel, -1)
+        sel = _with_neighbours(sel)
         typ = np.nonzero(sel)[0]
         self._typ_key = key
         self._typ_cache = typ
@@ -754,14 +809,13 @@ class ClickDetector:
 
     def _finalise(self, *, final: bool) -> list[Click]:
         total = self.samples_seen
-        ready: list[_Candidate] = []
-        while self._pending:
-            c = self._pending[0]
-            need = (c.frame * self.hop + self._frame_span + 3 * self.hop + self._tail
-                    + self._post)  # the end of its window (_measure)
-            if need > total and not final:
-                break
-            ready.append(self._pending.pop(0))
+        # the candidates (in frame order) whose window (_measure) ends within
+        # the samples seen: frame * hop + span + 3 hop + tail + post <= total
+        last = (total - self._frame_span - 3 * self.hop - self._tail - self._post) // self.hop
+        n_ready = (len(self._pending) if final
+                   else bisect.bisect_right(self._pending, last, key=lambda c: c.frame))
+        ready = self._pending[:n_ready]
+        del self._pending[:n_ready]
         if ready:
             self._out.extend(self._measure(ready))
         out, self._out = self._out, []
@@ -779,19 +833,20 @@ class ClickDetector:
             self._x0 = first
         return out
 
-    def _window(self, starts: np.ndarray, length: int, *, high_passed: bool = False
-                ) -> np.ndarray:
-        """Rows x[start:start + length] of the kept raw samples, zero outside."""
-        x, x0 = (self._y if high_passed else self._x), self._x0
-        rel = starts - x0
-        if rel.size and rel.min() >= 0 and rel.max() + length <= x.size:  # (the usual case)
-            return _rows(x, rel, length)
-        out = np.zeros((len(starts), length), dtype=np.float32)
-        for i, st in enumerate(rel.tolist()):
-            a, b = max(st, 0), min(st + length, x.size)
-            if b > a:
-                out[i, a - st:b - st] = x[a:b]
-        return out
+    def _span(self, starts: np.ndarray, length: int, *, high_passed: bool = False
+              ) -> tuple[np.ndarray, np.ndarray]:
+        """The kept samples (raw or high-passed) and where each window starts in them.
+
+        Window i, the stream's samples [starts[i], starts[i] + length) with
+        zeros outside the kept ones, is ``buf[at[i]:at[i] + length]``.
+        """
+        x = self._y if high_passed else self._x
+        at = starts - self._x0
+        if not at.size or (at.min() >= 0 and at.max() + length <= x.size):  # (the usual case)
+            return x, at
+        pad_lo, pad_hi = max(0, -int(at.min())), max(0, int(at.max()) + length - x.size)
+        return (np.concatenate([np.zeros(pad_lo, dtype=np.float32), x,
+                                np.zeros(pad_hi, dtype=np.float32)]), at + pad_lo)
 
     def _measure(self, cands: list[_Candidate]) -> list[Click]:
         """Onset, features and the click-or-not decision of candidates, in one batch."""
@@ -803,7 +858,7 @@ class ClickDetector:
         lead = self._tail + self._pre + 2 * self.hop
         length = lead + search + self._tail + self._post
         w0 = frames * self.hop - lead
-        y = self._window(w0, length, high_passed=True)
+        y, y_at = self._span(w0, length, high_passed=True)  # window i: y[y_at[i]:][:length]
         s0 = lead
         # coarse: the peak of the energy of the band where the candidate rang
         # within the frame holding the rise (complex demodulation at the bin's
@@ -811,20 +866,25 @@ class ClickDetector:
         # holds far more of the click than the broadband signal, whose own
         # peak may be noise
         nav = self._bp_len
-        seg = y[:, s0 - nav // 2:s0 + search + nav - nav // 2]
+        seg = _rows(y, y_at + s0 - nav // 2, search + nav)
         cs = np.cumsum(seg * self._demod[[c.band for c in cands]], axis=1)
         band_e = np.abs(cs[:, nav:nav + search] - cs[:, :search])
         pk = s0 + np.argmax(band_e, axis=1)
-        # fine: AIC change point (Maeda 1985) on the broadband y[pk - pre, pk + post)
-        j = _aic_split(_rows(y, pk - self._pre, self._pre + self._post))
-        on_local = pk - self._pre + j  # index in y rows of the onset
+        # fine: AIC change point (Maeda 1985) on the broadband window [pk - pre, pk + post)
+        j = _aic_split_rows(_rows(y, y_at + pk - self._pre, self._pre + self._post))
+        on_local = pk - self._pre + j  # index of the onset in its window
         onsets = w0 + on_local
-        feats = self._features(y, on_local, onsets)
-        # (array features are read as numpy scalars: a float32 feature meets its
-        # threshold in float32)
+        feats = self._features(y, y_at + on_local, onsets)
         level, rings, decays, attack, tonality, ring_snr, ring_snr_short = (
             feats["level_dbfs"], feats["ring_hz"], feats["decay_s"], feats["attack_s"],
             feats["tonality_db"], feats["ring_snr_db"], feats["ring_snr_short_db"])
+        # the tests on whole arrays (a float32 feature meets its threshold in
+        # float32, as numpy compares an array with a Python float)
+        fails = ((attack > self.max_attack_s) | (tonality < self.min_tonality_db)
+                 | (ring_snr < self.min_ring_snr_db)).tolist()
+        quick = (attack <= self.max_attack_s).tolist()
+        short_ok = (ring_snr_short >= self.min_ring_snr_db - 2.0).tolist()
+        levels = level.tolist()
         clicks: list[Click] = []
         for i, (c, onset) in enumerate(zip(cands, onsets.tolist())):
             if onset - self._last_onset < self._post:
@@ -835,8 +895,7 @@ class ClickDetector:
             ring = rings[i]
             ok = True
             if self.reject:
-                if (attack[i] > self.max_attack_s or tonality[i] < self.min_tonality_db
-                        or ring_snr[i] < self.min_ring_snr_db):
+                if fails[i]:
                     ok = False
                 elif not c.strong:
                     rr = c.ring_range_hz
@@ -844,33 +903,31 @@ class ClickDetector:
             if not ok:
                 self.rejected += 1
                 self.rejected_times_s.append(onset / fs)
-                if (self.reject and ring is not None and attack[i] <= self.max_attack_s
-                        and (c.strong or ring_snr_short[i] >= self.min_ring_snr_db - 2.0)
+                if (self.reject and ring is not None and quick[i] and (c.strong or short_ok[i])
                         and len(self._second_look) < 200000):
                     if self._mf is not None:
                         self._mf.note_click(onset, accepted=False)
                     self._second_look.append(Click(
-                        time_s=onset / fs, sample=onset,
-                        level_dbfs=round(float(level[i]), 3),
+                        time_s=onset / fs, sample=onset, level_dbfs=round(levels[i], 3),
                         strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
                 continue
             self._last_onset = onset
             if self._mf is not None:
                 self._mf.note_click(onset)
             self._bin_votes[c.band] += 1
-            clicks.append(Click(time_s=onset / fs, sample=onset,
-                                level_dbfs=round(float(level[i]), 3),
+            clicks.append(Click(time_s=onset / fs, sample=onset, level_dbfs=round(levels[i], 3),
                                 strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
         return clicks
 
     def _features(self, y: np.ndarray, on: np.ndarray, onsets: np.ndarray) -> dict:
-        """Per-click features from the high-passed rows ``y`` (onset at column ``on``)."""
+        """Per-click features from the high-passed samples ``y`` (onsets at ``y[on]``)."""
         fs = self.sample_rate_hz
-        k = y.shape[0]
+        k = on.size
         m = self._tail
         gap = int(0.0005 * fs)
         # level: peak of the raw signal within 5 ms of the onset
-        raw = self._window(onsets, int(0.005 * fs))
+        n_raw = int(0.005 * fs)
+        raw = _rows(*self._span(onsets, n_raw), n_raw)
         level = 20 * np.log10(np.maximum(np.max(np.abs(raw), axis=1), 1e-10))
         tail = _rows(y, on, m)
         pre = _rows(y, on - gap - m, m)
@@ -943,28 +1000,31 @@ class ClickDetector:
         if have.any():
             sel_rows = np.nonzero(have)[0]
             w = (-2j * math.pi * ring[sel_rows] / fs)[:, None]
+            blk = max(1, round(0.0005 * fs))
+            blk2 = 2 * blk
+            # exp(-i w n) over the longer blocks; its first blk columns serve the
+            # shorter ones
+            phasor = np.exp(w * np.arange(blk2)[None, :]).astype(np.complex64)
+            phasors = {blk2: phasor, blk: np.ascontiguousarray(phasor[:, :blk])}
 
             def block_env(sig: np.ndarray, blk: int) -> np.ndarray:
                 # |mean over each block of sig * exp(-i w n)|: the phase that
                 # carries over from block to block has modulus one, so one
                 # block-long phasor serves every block
                 nbk = sig.shape[1] // blk
-                base = np.exp(w * np.arange(blk)[None, :]).astype(np.complex64)
                 xb = sig[:, :nbk * blk].reshape(sig.shape[0], nbk, blk)
-                return np.abs(np.einsum("kjb,kb->kj", xb, base)) / blk
+                return np.abs(np.einsum("kjb,kb->kj", xb, phasors[blk])) / blk
 
-            blk = max(1, round(0.0005 * fs))
             nab = 20
-            first = _rows(y, on[sel_rows], nab * blk, sel_rows)
+            first = _rows(y, on[sel_rows], nab * blk)
             env = block_env(first, blk)
             attack = np.ones(k)
             attack[sel_rows] = (np.argmax(env >= 0.7 * env.max(axis=1, keepdims=True), axis=1)
                                 * blk / fs)
-            blk2 = 2 * blk
             nb = m // blk2
             env_t = block_env(tail[sel_rows], blk2)
             npb = self._pre // blk2
-            pre_d = _rows(y, on[sel_rows] - gap - npb * blk2, npb * blk2, sel_rows)
+            pre_d = _rows(y, on[sel_rows] - gap - npb * blk2, npb * blk2)
             env_p = block_env(pre_d, blk2)
             env_db = 20 * np.log10(env_t + 1e-12)
             floor_db = 10 * np.log10(np.mean(env_p ** 2, axis=1) + 1e-24) + 6.0
@@ -983,10 +1043,11 @@ class ClickDetector:
             sxx = (dt * dt).sum(axis=1)
             sxy = (dt * (env_db - my[:, None])).sum(axis=1)
             slope = np.where(sxx > 0, sxy / np.where(sxx > 0, sxx, 1.0), 0.0)
-            for i in np.nonzero((cnt >= 3) & (slope < 0))[0]:
-                decay[int(sel_rows[i])] = float(-_DB_PER_NEPER / slope[i])
-        return {"level_dbfs": level, "ring_hz": [float(r) if np.isfinite(r) else None
-                                                 for r in ring],
+            fit = np.nonzero((cnt >= 3) & (slope < 0))[0]
+            for i, d_s in zip(sel_rows[fit].tolist(), (-_DB_PER_NEPER / slope[fit]).tolist()):
+                decay[i] = d_s
+        return {"level_dbfs": level, "ring_hz": [r if math.isfinite(r) else None
+                                                 for r in ring.tolist()],
                 "decay_s": decay, "attack_s": attack, "tonality_db": tonality,
                 "ring_snr_db": ring_snr, "ring_snr_short_db": ring_snr_s}
 
@@ -1004,6 +1065,43 @@ class ClickDetector:
     def _hp_corner(self) -> float:
         """Lowest frequency (Hz) the refinement stream keeps: the high-pass corner."""
         return float(self._hp_hz)
+
+
+def _with_neighbours(sel: np.ndarray) -> np.ndarray:
+    """A 1-D mask with each True's neighbours set too, circularly (the last bin neighbours the first).
+
+    The same as ``sel | np.roll(sel, 1) | np.roll(sel, -1)``, without np.roll's
+    overhead on these short masks.
+    """
+    out = sel.copy()
+    if sel.size:
+        out[1:] |= sel[:-1]
+        out[:-1] |= sel[1:]
+        out[0] |= sel[-1]
+        out[-1] |= sel[0]
+    return out
+
+
+def _aic_split_rows(aw: np.ndarray) -> np.ndarray:
+    """:func:`_aic_split` of many rows, the same values with less work.
+
+    The criterion is evaluated only where the minimum is searched (first
+    segments of 2 .. n - 4 samples) and the segment lengths are float64 from
+    the start (numpy casts the integer lengths to float64 in every division
+    and product otherwise); every value is computed by the same operations in
+    the same order, so the split is the same to the sample.
+    """
+    n = aw.shape[1]
+    c1 = np.cumsum(aw, axis=1)
+    c2 = np.cumsum(aw * aw, axis=1)
+    kk = np.arange(2, n - 3, dtype=np.float64)  # length of the first segment
+    nk = n - kk
+    s1, q1 = c1[:, 1:n - 4], c2[:, 1:n - 4]
+    s2, q2 = c1[:, -1:] - s1, c2[:, -1:] - q1
+    var1 = np.maximum(q1 / kk - (s1 / kk) ** 2, 1e-30)
+    var2 = np.maximum(q2 / nk - (s2 / nk) ** 2, 1e-30)
+    aic = kk * np.log(var1) + (nk - 1) * np.log(var2)
+    return 2 + np.argmin(aic, axis=1)
 
 
 class _TemplateScan:

@@ -3,7 +3,17 @@
 import numpy as np
 import pytest
 
-from popmeter.detection import _cover, _local_periods, _percentile, _row_dots, _rows
+from popmeter.detection import (
+    ClickDetector,
+    _aic_split,
+    _aic_split_rows,
+    _cover,
+    _local_periods,
+    _percentile,
+    _row_dots,
+    _rows,
+    _with_neighbours,
+)
 
 
 @pytest.mark.parametrize("q", [5, 10, 25, 50, 75, 90, 95])
@@ -136,3 +146,67 @@ def test_log_distance_equals_one_value_at_a_time():
     expected = [np.min(np.abs(math.log(v) - centres)) for v in values]
     assert np.array_equal(_log_distance(values, centres), expected)
     assert np.array_equal(_log_distance(values.tolist(), centres), expected)
+
+
+def test_aic_split_rows_equals_aic_split():
+    # reference: _aic_split, the direct cumulative-sum form of the AIC picker
+    # (Maeda 1985; Sleeman & van Eck, PEPI 1999), row by row
+    rng = np.random.default_rng(11)
+    for n in (12, 40, 432):
+        for _ in range(40):
+            k = int(rng.integers(1, 30))
+            aw = (rng.standard_normal((k, n)) * 10.0 ** rng.uniform(-5, 0)).astype(np.float32)
+            onset = rng.integers(2, n - 2, k)
+            aw[np.arange(n)[None, :] >= onset[:, None]] *= rng.uniform(1.0, 50.0)
+            if rng.integers(4) == 0:
+                aw[0] = 0.0  # a silent row: every variance at its floor
+            got = _aic_split_rows(aw)
+            assert np.array_equal(got, np.concatenate([_aic_split(r[None, :]) for r in aw]))
+            assert np.array_equal(got, _aic_split(aw))
+
+
+def test_clipped_count_equals_numpy_count():
+    # reference: numpy's count of |x| >= 0.9999 after numpy.nan_to_num, over every block
+    rng = np.random.default_rng(12)
+    det = ClickDetector(48000.0, template_scan=False)
+    expected = 0
+    for size in (1, 500, 4096, 3, 20000):
+        x = (rng.uniform(-1.001, 1.001, size)).astype(np.float32)
+        x[rng.integers(0, size, max(1, size // 50))] = np.float32(0.9999)
+        if size > 3:
+            x[rng.integers(0, size, 3)] = [np.nan, np.inf, -np.inf]
+        clean = np.nan_to_num(x, nan=0.0, posinf=1.0, neginf=-1.0)
+        expected += int(np.count_nonzero(np.abs(clean) >= np.float32(0.9999)))
+        det.process(x)
+        assert det.clipped_samples == expected
+    assert expected > 0
+
+
+def test_span_windows_are_the_stream_with_zeros_outside():
+    # reference: the stream's kept samples zero-padded with numpy.pad, sliced directly
+    rng = np.random.default_rng(13)
+    det = ClickDetector(48000.0, template_scan=False)
+    x = rng.standard_normal(30000).astype(np.float32) * 0.01
+    det.process(x)
+    kept_from = det._x0
+    assert 0 < kept_from < x.size - 1000  # (some samples dropped, some kept)
+    n = 700
+    padded = np.pad(x[kept_from:], 2 * n)
+    for starts in ([kept_from + 5, kept_from + 100], [kept_from - 50, kept_from + 10],
+                   [x.size - 100, kept_from + 1], [kept_from - n - 3, x.size + 2]):
+        starts = np.array(starts, dtype=np.int64)
+        buf, at = det._span(starts, n)
+        want = np.array([padded[s - kept_from + 2 * n:][:n] for s in starts.tolist()])
+        assert np.array_equal(_rows(buf, at, n), want)
+
+
+def test_with_neighbours_equals_numpy_roll():
+    # reference: numpy.roll one bin each way (circular)
+    rng = np.random.default_rng(14)
+    for n in (0, 1, 2, 3, 5, 81):
+        for _ in range(50):
+            sel = rng.random(n) < rng.uniform(0.0, 0.5)
+            want = sel | np.roll(sel, 1) | np.roll(sel, -1)
+            got = _with_neighbours(sel)
+            assert np.array_equal(got, want)
+            assert got is not sel
