@@ -1959,17 +1959,9 @@ class _TemplateScan:
         return out
 
 
-def _rows(x: np.ndarray, starts: np.ndarray, length: int,
-          rows: np.ndarray | None = None) -> np.ndarray:
-    """Row i of the result is x[rows[i], starts[i]:starts[i] + length] (a copy).
-
-    ``rows`` defaults to every row of x in order; a 1-D x gives
-    x[starts[i]:starts[i] + length].
-    """
-    if x.ndim == 1:
-        x, rows = x[None, :], np.zeros(len(starts), dtype=np.int64)
-    view = _windows(x, length)
-    return view[np.arange(x.shape[0]) if rows is None else rows, starts]
+def _rows(x: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
+    """Row i of the result is x[starts[i]:starts[i] + length] (a copy) of a 1-D x."""
+    return _windows(x[None, :], length)[0, starts]
 
 
 def _windows(x: np.ndarray, length: int) -> np.ndarray:
