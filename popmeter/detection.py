@@ -1127,8 +1127,8 @@ class _TemplateScan:
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
-    IRE Trans. IT-6, 1960), in fixed chunks of ``chunk_s`` by FFT (300 Hz to
-    0.45 x the decimated rate), and the envelope of the output (analytic
+    IRE Trans. IT-6, 1960), in fixed chunks of ``chunk_s``, by FFT in
+    overlapping blocks (300 Hz to 0.45 x the decimated rate), and the envelope of the output (analytic
     signal, read exactly at every second sample: :meth:`_envelope`) is
     compared with a noise level: the larger of (a) the floor of each second
     of the chunk, the lower decile of the 10 ms medians of the envelope over
@@ -1199,14 +1199,19 @@ class _TemplateScan:
         self.click_fit: list[float] = []
         self.click_slot: list[int] = []  # which template found each click (0 main, 1 second)
         self.main_found: list[int] = []  # onsets (decimated) the main template found
-        # (even, and its half a fast length: the envelope's inverse FFT has nfft / R points)
-        self.nfft = self.R * sp_fft.next_fast_len(-(-(self.C + self.E + self.E2 + self.L)
-                                                    // self.R))
-        f = np.arange(self.nfft // 2 + 1) * (fs_d / self.nfft)
+        # the filter runs on overlapping blocks of M samples (overlap-save,
+        # Oppenheim & Schafer, "Discrete-Time Signal Processing", 1989,
+        # section 8.7.3): each gives V outputs, Q more on either side being
+        # dropped (there the band mask's and the analytic signal's responses
+        # wrap round the block)
+        self.M = 4096
+        self.Q = 256
+        self.V = (self.M - (self.L - 1) - 2 * self.Q) // 2 * 2  # (even)
+        self.nB = -(-(self.C + self.E + self.E2) // self.V)  # blocks per chunk
+        f = np.arange(self.M // 2 + 1) * (fs_d / self.M)
         self.mask = ((f >= 300.0) & (f <= 0.45 * fs_d)).astype(np.float32)
-        self._spec_key: int | None = None  # chunk whose spectrum is in _spec
-        self._spec = np.zeros(0, dtype=np.complex64)
-        self._ibuf = np.zeros(self.nfft // self.R, dtype=np.complex64)  # (the inverse FFT's input)
+        self._spec_key: int | None = None  # chunk whose block spectra are in _spec
+        self._spec = np.zeros((0, self.M // 2), dtype=np.complex64)
         # second template by folding (see _fold_second): tried at fixed places
         # in the stream, so the result does not depend on block sizes
         self.fold_every = round(5.0 * fs_d)  # decimated samples between folds
@@ -1325,19 +1330,22 @@ class _TemplateScan:
 
     def _install(self, slot: list, h: np.ndarray) -> None:
         """Make ``h`` (zero mean, unit norm, onset ``P`` samples in) the template of ``slot``."""
-        nf = 4 * self.nfft
+        nf = 2 ** 18  # (ring frequency to 0.1 Hz at 24 kHz)
         spec = np.abs(sp_fft.rfft(h, n=nf))
         fr = np.arange(spec.size) * (self.fs_d / nf)
         spec[(fr < 300.0) | (fr > 0.45 * self.fs_d)] = 0.0
-        # (the conjugate spectrum with the band mask folded in: exact, the mask is 0 or 1)
-        slot[0] = np.conj(sp_fft.rfft(h, n=self.nfft)).astype(np.complex64) * self.mask
+        # (the conjugate spectrum of a block with the band mask folded in,
+        # below half the rate only: see _envelope)
+        slot[0] = (np.conj(sp_fft.rfft(h, n=self.M)).astype(np.complex64)
+                   * self.mask)[:self.M // 2]
         slot[1] = float(fr[int(np.argmax(spec))])
         slot[2] = h
         # the floor estimator's value on noise alone, relative to the median
         # (white Gaussian noise, fixed seed: the same on every run)
-        noise = np.random.default_rng(12345).standard_normal(self.nfft).astype(np.float32)
+        noise = np.random.default_rng(12345).standard_normal(
+            self.C + self.E + self.E2 + self.L - 1).astype(np.float32)
         slot[4] = 1.0
-        env = self._envelope(noise[:self.C + self.E + self.E2 + self.L - 1], slot[0])
+        env = self._envelope(noise, slot[0])
         env = env[:-(-(self.S + self.E + self.E2) // self.R)]  # (one floor span)
         slot[4] = float(np.percentile(self._bin_medians(env), 10)) / float(np.median(env))
 
@@ -1645,26 +1653,30 @@ class _TemplateScan:
                   ) -> np.ndarray:
         """Envelope of the matched-filter output of one chunk, at every R-th sample.
 
-        The output's analytic signal z has the one-sided spectrum Z (the
-        chunk's spectrum times the template's conjugate, band-masked).  With
-        N = nfft, ``z[R j] = (1/N) sum_k Z[k] exp(2 pi i k j / (N / R))``, and
-        Z is zero from bin N / R on (the band mask stops at 0.45 of the
-        decimated rate, below bin N / 2), so ``z[R j]`` is exactly the inverse
-        DFT of length N / R of the first N / R bins, divided by R (Z is twice
-        the product of the spectra, as for any analytic signal): half the
-        work of the whole output for R = 2.  The 10 ms statistics and the
-        peaks read these samples; a peak's time is interpolated between them.
+        ``seg`` holds the chunk's samples (output i is the correlation of
+        ``seg[i:i + L]`` with the template).  By overlap-save blocks of M
+        samples (``nB`` of them, V apart), each block's output analytic
+        signal z has the one-sided spectrum Z (the block's spectrum times the
+        template's conjugate, band-masked, times 2).  With R = 2,
+        ``z[2 u] = (1/M) sum_k Z[k] exp(2 pi i k u / (M / 2))``, and Z is zero
+        from bin M / 2 on (the band mask stops at 0.45 of the decimated rate),
+        so ``z[2 u]`` is exactly the inverse DFT of length M / 2 of the
+        product's first M / 2 bins: half the work of the whole output.  The
+        10 ms statistics and the peaks read these samples; a peak's time is
+        interpolated between them.  The block spectra are kept for the next
+        template on the same chunk (``key``).
         """
+        M, Q, V = self.M, self.Q, self.V
         if key is None or key != self._spec_key:
-            self._spec = sp_fft.rfft(seg, n=self.nfft)
+            ext = np.zeros((self.nB - 1) * V + M, dtype=np.float32)
+            ext[Q:Q + seg.size] = seg[:ext.size - Q]
+            blocks = np.lib.stride_tricks.as_strided(
+                ext, shape=(self.nB, M), strides=(V * ext.itemsize, ext.itemsize),
+                writeable=False)
+            self._spec = sp_fft.rfft(blocks, axis=1)[:, :M // 2]
             self._spec_key = key
-        k = self.nfft // self.R
-        buf = self._ibuf  # (one buffer reused: a new one per chunk costs page faults)
-        np.multiply(self._spec[:k], hc[:k], out=buf)
-        out = np.abs(sp_fft.ifft(buf, overwrite_x=True)[:self.n_env])
-        if self.R != 2:  # (the analytic signal's factor 2 over R)
-            out *= np.float32(2.0 / self.R)
-        return out
+        z = sp_fft.ifft(self._spec * hc, axis=1, overwrite_x=True)
+        return np.abs(z[:, Q // 2:(Q + V) // 2]).reshape(-1)[:self.n_env]
 
     def _bin_medians(self, env: np.ndarray) -> np.ndarray:
         """Median of env (every R-th sample) per 10 ms bin (the upper median: an order statistic)."""
@@ -1738,7 +1750,7 @@ class _TemplateScan:
         s0 = a - self.E - self.P  # decimated index of seg[0]
         n_out = self.C + self.E + self.E2  # output samples (decimated rate)
         m = n_out + self.L - 1
-        seg = np.zeros(self.nfft, dtype=np.float32)  # (zero-padded to the FFT length here)
+        seg = np.zeros(m, dtype=np.float32)
         lo, hi = max(s0, self.b0), min(s0 + m, self.b0 + self.buf.size)
         if hi > lo:
             seg[lo - s0:hi - s0] = self.buf[lo - self.b0:hi - self.b0]
