@@ -25,7 +25,7 @@ Speed: the whole ``popmeter analyze`` computation (popmeter.analysis.analyze_fil
 reading, detection, timeline, summary) and the detection alone
 (popmeter.audio_io.open_stream + detect_clicks_in_blocks, also without the
 matched-filter pass) on a 48 kHz mono WAV file, side by side with librosa.load +
-librosa.onset.onset_detect (default settings) on the same file; best of three
+librosa.onset.onset_detect (default settings) on the same file; best of five
 after a warm-up run, in one process, with OMP/OpenBLAS/MKL/numba thread pools
 set to one thread (one core); and analyze_file once more in a fresh process
 with the libraries' default thread pools, as a user running ``popmeter
@@ -206,7 +206,7 @@ def speed(tmp: str, minutes: float) -> None:
     analyze_file(path)
     _librosa_path(path)  # warm-up: numba compilation and caches
     t_all, t_ours, t_lib, t_noscan = [], [], [], []
-    for _ in range(3):
+    for _ in range(5):  # (interleaved: a slow spell of the machine hits every path)
         t0 = time.perf_counter()
         analyze_file(path)
         t_all.append(time.perf_counter() - t0)
@@ -220,13 +220,15 @@ def speed(tmp: str, minutes: float) -> None:
         _analyze_equivalent(path, template_scan=False)
         t_noscan.append(time.perf_counter() - t0)
     w, a, b, c = min(t_all), min(t_ours), min(t_lib), min(t_noscan)
-    print(f"\n== speed: {dur:.0f} s, 48 kHz mono 16-bit WAV, best of 3 (one process, "
+    print(f"\n== speed: {dur:.0f} s, 48 kHz mono 16-bit WAV, best of 5 (one process, "
           "thread pools set to 1: one core) ==")
     print(f"popmeter analyze_file (the whole analyze)      : {w:7.3f} s  = {dur / w:7.0f}x real time")
     print(f"popmeter open_stream + detect_clicks_in_blocks : {a:7.3f} s  = {dur / a:7.0f}x real time")
     print(f"  the same without the matched-filter pass     : {c:7.3f} s  = {dur / c:7.0f}x real time")
     print(f"librosa.load + librosa.onset.onset_detect      : {b:7.3f} s  = {dur / b:7.0f}x real time")
-    print(f"ratio analyze / librosa time                   : {w / b:7.2f}")
+    per_round = sorted(x / y for x, y in zip(t_all, t_lib))
+    print(f"ratio analyze / librosa time                   : {w / b:7.2f}  (per round: "
+          f"median {per_round[2]:.2f}, {per_round[0]:.2f}-{per_round[-1]:.2f})")
     # what a user running `popmeter analyze` gets: the libraries' own thread
     # pools (no forced single thread), in a fresh process, best of 3
     env = {k: v for k, v in os.environ.items() if k not in _THREAD_VARS}
