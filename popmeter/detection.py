@@ -73,16 +73,17 @@ The steps, and the published method each follows:
    (and, from accepted or nearly accepted clicks unlike it, a second
    template for the brighter second click of a two-click engine).  The
    decimated stream is correlated with each template in fixed 2 s chunks and
-   the envelope of the output (read at every second sample) is thresholded against its own robust noise
-   level (Rayleigh statistics); the clicks a frame detector misses (startup
-   and fade pops, second clicks) stand out there because the template
-   gathers the whole ring's energy.  Once the second click's delay (as a
-   fraction of the period) is known, a narrow window at each expected second
-   click is searched with a lower threshold.  A second click too weak for
-   the frame detector is found by folding: the band energy of 64 or more
-   cycles averaged by phase (synchronous averaging) shows where in the cycle
-   it lies, and its template is averaged from there.  The first up to 30 s are kept
-   so that the clicks before the templates existed are found too.  See
+   the envelope of the output (read at every second sample) is thresholded
+   against its own robust noise level (Rayleigh statistics); the clicks a
+   frame detector misses (startup and fade pops, second clicks) stand out
+   there because the template gathers the whole ring's energy.  Once the
+   second click's delay (as a fraction of the period) is known, a narrow
+   window at each expected second click is searched with a lower threshold.
+   A second click too weak for the frame detector is found by folding: the
+   band energy of 64 or more cycles averaged by phase (synchronous
+   averaging) shows where in the cycle it lies, and its template is averaged
+   from there.  The first up to 30 s are kept so that the clicks before the
+   templates existed are found too.  See
    :class:`_TemplateScan`.  These clicks join in the whole-recording passes
    (:func:`finish_detection`), not in ``process``'s output.
 
@@ -1128,16 +1129,17 @@ class _TemplateScan:
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
     IRE Trans. IT-6, 1960), in fixed chunks of ``chunk_s``, by FFT in
-    overlapping blocks (300 Hz to 0.45 x the decimated rate), and the envelope of the output (analytic
-    signal, read exactly at every second sample: :meth:`_envelope`) is
-    compared with a noise level: the larger of (a) the floor of each second
-    of the chunk, the lower decile of the 10 ms medians of the envelope over
-    that second and the chunk's margins, divided by its value on white
-    Gaussian noise (computed once per template, fixed seed) -- robust to
-    clicks filling most of the time -- and (b) the median
-    of the three 10 ms medians 20-50 ms earlier (speech or a splash raises
-    it; bins within an accepted click's ring count as zero there); each over 1.1774, the median of a Rayleigh variable of unit scale
-    (the envelope of Gaussian noise is Rayleigh).  A click is a peak
+    overlapping blocks (300 Hz to 0.45 x the decimated rate), and the
+    envelope of the output (analytic signal, read exactly at every second
+    sample: :meth:`_envelope`) is compared with a noise level: the larger of
+    (a) the floor of each second of the chunk, the lower decile of the 10 ms
+    medians of the envelope over that second and the chunk's margins,
+    divided by its value on white Gaussian noise (computed once per
+    template, fixed seed) -- robust to clicks filling most of the time --
+    and (b) the median of the three 10 ms medians 20-50 ms earlier (speech
+    or a splash raises it; bins within an accepted click's ring count as
+    zero there); each over 1.1774, the median of a Rayleigh variable of unit
+    scale (the envelope of Gaussian noise is Rayleigh).  A click is a peak
     ``threshold`` or more times that level, the largest within -5/+12 ms,
     rising 6 dB over the envelope just before the template's length, with
     no accepted click within 10 ms.  With the second click's delay known,
