@@ -335,8 +335,10 @@ def main() -> None:
     ap.add_argument("--skip-speed", action="store_true")
     ap.add_argument("--skip-memory", action="store_true")
     ap.add_argument("--skip-accuracy", action="store_true")
+    ap.add_argument("--seeds", type=int, default=6,
+                    help="seeds per scenario for the accuracy tables (default 6: 1-6)")
     args = ap.parse_args()
-    seeds = [1] if args.quick else [1, 2]
+    seeds = [1] if args.quick else list(range(1, args.seeds + 1))
     if not args.skip_accuracy:
         for condition in ("even", "generator"):
             accuracy(seeds, 30.0 if args.quick else 60.0, condition)
