@@ -217,3 +217,31 @@ def test_with_neighbours_equals_numpy_roll():
             got = _with_neighbours(sel)
             assert np.array_equal(got, want)
             assert got is not sel
+
+
+def test_click_share_weight_keeps_the_click_and_drops_the_echo():
+    # a folded window holding a 4 kHz click and a 1.2 kHz echo that was there
+    # before the click too: the Wiener gain max(0, 1 - off/on) (Wiener 1949;
+    # from memory) keeps the first and removes the second
+    from popmeter.detection import _click_share_filtered
+
+    fs = 24000.0
+    n = 288
+    t = np.arange(n) / fs
+    click = np.sin(2 * np.pi * 4000.0 * t) * np.exp(-t / 0.002)
+    echo = 0.8 * np.sin(2 * np.pi * 1200.0 * t + 0.3)
+    h = click + echo
+    m = 200
+    f = np.arange(m // 2 + 1) * fs / m
+    off = np.where(np.abs(f - 1200.0) < 400.0, 1.0, 1e-3)  # the echo before the click
+    on = off + np.where(np.abs(f - 4000.0) < 1500.0, 1.0, 0.0)  # and the click with it
+    out = _click_share_filtered(h, fs, f, on, off)
+    spec = np.abs(np.fft.rfft(out, 4096))
+    fr = np.fft.rfftfreq(4096, 1.0 / fs)
+    near = lambda f0: spec[np.abs(fr - f0) < 150.0].max()  # noqa: E731
+    assert near(4000.0) > 10.0 * near(1200.0)
+    assert abs(np.linalg.norm(out) - 1.0) < 1e-9 and abs(out.mean()) < 1e-12
+    # where nothing was there before, the template is unchanged (up to its norm)
+    same = _click_share_filtered(click, fs, f, on, np.full_like(on, 1e-12))
+    ref = (click - click.mean()) / np.linalg.norm(click - click.mean())
+    assert np.corrcoef(same, ref)[0, 1] > 0.999
