@@ -1982,21 +1982,29 @@ def _click_share_filtered(h: np.ndarray, fs: float, f_hz: np.ndarray, on_pow: np
                           off_pow: np.ndarray) -> np.ndarray:
     """A folded template kept where the second click stands out of what surrounds it.
 
-    At the second click's phase the cycles hold the click and whatever was
-    there anyway (noise, and in a room the main click's reverberation, which
-    rings where the main click rings).  Each frequency is weighted by the
-    click's share of the power there, ``max(0, 1 - off / on)`` (``on_pow``:
-    the mean power spectrum at the phase, ``off_pow``: just before it, at
-    frequencies ``f_hz``), the gain of a Wiener filter (Wiener 1949; from
-    memory), so the template matches the click rather than the room's echo
-    of the main click: the matched filter for coloured interference weights
-    the signal's spectrum by the interference's inverse (Turin 1960).  The
-    weight is applied with zero phase (``fs``: the template's sample rate),
-    the onset stays where it was; zero mean, unit norm.
+    At the second click's phase the cycles hold the click, the noise and
+    whatever else was there anyway: in a room, the main click's
+    reverberation, which rings where the main click rings.  The matched
+    filter is already the best one for white noise; against coloured
+    interference it weights the signal's spectrum by the interference's
+    inverse (Turin 1960).  So each frequency is weighted by the click's
+    share of the power there once the noise floor is set aside,
+    ``max(0, 1 - (off - floor) / on)`` with ``on_pow`` the mean power
+    spectrum at the phase, ``off_pow`` just before it (at frequencies
+    ``f_hz``) and ``floor`` the median of ``off_pow`` from 500 Hz to 0.45 x
+    ``fs`` (a Wiener gain, Wiener 1949, from memory, for the interference
+    above the noise floor).  In a dry room the weight is about one and the
+    template stays as it is; where an echo rang before the click, its
+    frequencies are dropped.  The weight is applied with zero phase
+    (``fs``: the template's sample rate), the onset stays where it was;
+    zero mean, unit norm.
     """
     L = h.size
     n = int(2 ** math.ceil(math.log2(4 * L)))
-    share = np.clip(1.0 - off_pow / np.maximum(on_pow, 1e-30), 0.0, 1.0)
+    band = (f_hz >= 500.0) & (f_hz <= 0.45 * fs)
+    floor = float(np.median(off_pow[band])) if band.any() else 0.0
+    excess = np.maximum(off_pow - floor, 0.0)
+    share = np.clip(1.0 - excess / np.maximum(on_pow, 1e-30), 0.0, 1.0)
     fr = np.arange(n // 2 + 1) * (fs / n)
     padded = np.zeros(n)
     padded[L:2 * L] = h  # (room either side for the weight's response)
