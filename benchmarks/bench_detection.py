@@ -14,7 +14,8 @@ match strike and knock), under two conditions:
 * ``generator``: the generator's default run, whose start-up pops are up to
   12 dB and fade pops up to 18 dB under the steady click (second clicks there
   down to 24 dB under), so that at 12 dB the faintest lie under the noise.
-  Detection F-measure at +-5 ms with
+
+Detection F-measure at +-5 ms with
 mir_eval.onset.f_measure (window=0.005), median |timing error| of the matched
 clicks, ring-frequency error of the matched main clicks against the truth's
 ring, the clicks-per-cycle decision, and the recall split by click level (the

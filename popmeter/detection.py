@@ -1190,8 +1190,9 @@ class _TemplateScan:
         self.example_onsets: list[int] = []
         self.phase: float | None = None  # second click's delay / the period before
         self._is_main: dict[int, bool] = {}  # accepted onset -> like the main template
-        # per template slot: [filter spectrum (conjugate, band-masked) or
-        # None, ring_hz, time-domain h, next chunk, floor calibration, ring DFT basis]
+        # per template slot: [a block's filter spectrum (conjugate, band-masked,
+        # first M / 2 bins: see _envelope) or None, ring_hz, time-domain h,
+        # next chunk, floor calibration, ring DFT basis]
         self.slots: list[list] = [[None, 0.0, None, 0, 1.0, None],
                                   [None, 0.0, None, 0, 1.0, None]]
         self.clicks: list[Click] = []
@@ -2237,7 +2238,7 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
                     and abs(math.log(c.ring_hz / b.ring_hz)) <= width
                     and c.level_dbfs <= b.level_dbfs - 9.0):
                 continue
-        out.append(_copied(c))
+        out.append(c)  # (:func:`_assign_kinds` copies every click it labels)
     return out
 
 
@@ -2677,9 +2678,8 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         # template has its place in the cycle (then it is the second family)
         if det._mf.phase is not None:
             found_by = {c.sample: slots[id(c)] for c in merged}
-        extra = [_copied(c) for c in merged]
-        if extra:
-            kept = sorted(kept + extra, key=lambda c: c.sample)
+        if merged:  # (the detector's own objects: _assign_kinds labels copies)
+            kept = sorted(kept + merged, key=lambda c: c.sample)
     hints = np.array([found_by.get(c.sample, -1) for c in kept], dtype=np.int64)
     labelled, cpc, seen = _assign_kinds(kept, clicks_per_cycle=clicks_per_cycle, hints=hints)
     if clicks_per_cycle is not None and len(kept) >= 12 and seen != clicks_per_cycle:
