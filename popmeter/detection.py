@@ -65,7 +65,9 @@ The steps, and the published method each follows:
    add :func:`reject_atypical` (drop clicks whose ring matches no family of
    the recording's own clicks: a knock rings far lower) and a second look
    that takes back rejected candidates ringing exactly like an accepted
-   family (short, bright second clicks).
+   family (short, bright second clicks).  Once an engine is found to give
+   one click per cycle, a quieter click within half a period after another
+   is its echo and is set aside (:func:`_one_per_cycle`).
 
 9. **Matched-filter pass with the recording's own click** (North 1943;
    Turin, "An introduction to matched filters", IRE Trans. IT-6, 1960): once
@@ -2098,6 +2100,35 @@ def _local_periods(gaps: np.ndarray, *, keep: float = 0.75) -> np.ndarray:
     return np.where(a == b, a, (a + b) / 2.0)
 
 
+def _one_per_cycle(clicks: list[Click], *, share: float = 0.5, quieter_db: float = 3.0
+                   ) -> tuple[list[Click], list[Click]]:
+    """A one-click engine's clicks, without the echoes of a click.
+
+    An engine that gives one click per cycle gives no click a fraction of a
+    period after the one before; a quieter click there (``quieter_db`` or
+    more under it, within ``share`` of the local period) is the room's
+    reflection of that click or its reverberation swelling again, and is set
+    aside.  The local period is the median of the 9 intervals around,
+    leaving out those under 0.75 of their upper quartile (which such a
+    click splits).  Fewer than 12 clicks are kept as they are (no period to
+    trust).  Returns (kept with their cycles renumbered, set aside).
+    """
+    n = len(clicks)
+    if n < 12:
+        return clicks, []
+    t = np.array([c.time_s for c in clicks])
+    lv = np.array([c.level_dbfs for c in clicks])
+    gaps = np.diff(t)
+    echo = np.concatenate([[False], (gaps < share * _local_periods(gaps))
+                           & (lv[1:] <= lv[:-1] - quieter_db)])
+    if not echo.any():
+        return clicks, []
+    kept = [c for c, e in zip(clicks, echo.tolist()) if not e]
+    for i, c in enumerate(kept):
+        c.cycle = i
+    return kept, [c for c, e in zip(clicks, echo.tolist()) if e]
+
+
 def _aic_split(aw: np.ndarray) -> np.ndarray:
     """Per row, the sample that best splits it into two stationary segments.
 
@@ -2682,6 +2713,11 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
             kept = sorted(kept + merged, key=lambda c: c.sample)
     hints = np.array([found_by.get(c.sample, -1) for c in kept], dtype=np.int64)
     labelled, cpc, seen = _assign_kinds(kept, clicks_per_cycle=clicks_per_cycle, hints=hints)
+    if cpc == 1 and atypical:
+        labelled, echoes = _one_per_cycle(labelled)
+        if echoes:
+            rejected += len(echoes)
+            rejected_times = sorted(rejected_times + [c.time_s for c in echoes])
     if clicks_per_cycle is not None and len(kept) >= 12 and seen != clicks_per_cycle:
         # a forced decision the clicks contradict: say so
         looks = ("two families of clicks alternating in time" if seen == 2
@@ -2724,7 +2760,9 @@ def finish_detection(detector: ClickDetector, clicks: list[Click], *,
     are taken back, a lone transient without an exponential decay is
     dropped, the clicks found by the matched-filter pass and not already
     present (none within 10 ms), up to the last click found so far, are
-    added, and one or two clicks per cycle is decided (:func:`assign_kinds`).  Live capture calls this on the stream so far
+    added, and one or two clicks per cycle is decided (:func:`assign_kinds`);
+    in a one-click engine, the echoes of a click are set aside
+    (:func:`_one_per_cycle`).  Live capture calls this on the stream so far
     (it does not change the detector).
 
     Parameters
