@@ -1188,6 +1188,10 @@ class _TemplateScan:
         self.b0 = 0  # decimated index of buf[0]
         self.n = 0  # decimated samples fed
         self.onsets: list[int] = []  # accepted clicks' onsets (decimated index), sorted
+        # rejected candidates with a click's quick attack and a ring (the
+        # detector's second-look pool), sorted: in a reverberant room a main
+        # click may ring too little above the room to be accepted at once
+        self.quick: list[int] = []
         self.examples: list[np.ndarray] = []
         self.example_onsets: list[int] = []
         self.phase: float | None = None  # second click's delay / the period before
@@ -1255,8 +1259,10 @@ class _TemplateScan:
         main, second = self.slots
         if accepted:
             self.onsets.append(od)
-        elif main[0] is None:
-            return
+        else:
+            self.quick.append(od)
+            if main[0] is None:
+                return
         if second[0] is not None:
             return
         a = od - self.P - self.A - self.b0
@@ -1631,6 +1637,19 @@ class _TemplateScan:
             out[i] = m
         return out
 
+    def _peaks(self, on: np.ndarray) -> np.ndarray:
+        """Largest absolute sample within 5 ms of these onsets (decimated), of the samples kept."""
+        n5 = round(0.005 * self.fs_d)
+        d0 = np.asarray(on, dtype=np.int64) - self.b0
+        peaks = np.zeros(d0.size, dtype=np.float32)
+        inner = (d0 >= 0) & (d0 + n5 <= self.buf.size)
+        if inner.any():
+            peaks[inner] = np.abs(_rows(self.buf, d0[inner], n5)).max(axis=1)
+        for j in np.flatnonzero(~inner).tolist():  # (at the buffer's ends)
+            raw = self.buf[max(d0[j], 0):max(d0[j] + n5, 0)]
+            peaks[j] = np.max(np.abs(raw)) if raw.size else 0.0
+        return peaks
+
     def _learn_phase(self, onsets: list[int]) -> float | None:
         """Delay of the second clicks after the main click / the period before it.
 
@@ -1746,6 +1765,8 @@ class _TemplateScan:
         lo = first - self.E - self.C
         if self.onsets and self.onsets[0] < lo:
             del self.onsets[:bisect.bisect_left(self.onsets, lo)]
+        if self.quick and self.quick[0] < lo:
+            del self.quick[:bisect.bisect_left(self.quick, lo)]
         if self.main_found and self.main_found[0] < lo:
             del self.main_found[:bisect.bisect_left(self.main_found, lo)]
 
@@ -1857,15 +1878,7 @@ class _TemplateScan:
         onsets_in = np.round((base + R * (order + frac)) * self.q).astype(np.int64).tolist()
         strength = 20 * np.log10(env[order] / np.maximum(level_at(order), 1e-30))
         # the level: the largest sample within 5 ms of the onset
-        d0 = base + of - self.b0
-        n5 = round(0.005 * self.fs_d)
-        peaks = np.zeros(order.size, dtype=np.float32)
-        inner = (d0 >= 0) & (d0 + n5 <= self.buf.size)
-        if inner.any():
-            peaks[inner] = np.abs(_rows(self.buf, d0[inner], n5)).max(axis=1)
-        for j in np.flatnonzero(~inner).tolist():  # (at the buffer's ends)
-            raw = self.buf[max(d0[j], 0):max(d0[j] + n5, 0)]
-            peaks[j] = np.max(np.abs(raw)) if raw.size else 0.0
+        peaks = self._peaks(base + of)
         for onset_in, ring, st, peak in zip(onsets_in, rings, strength.tolist(),
                                             peaks.tolist()):
             self.clicks.append(Click(time_s=onset_in / self.fs_in, sample=onset_in,
@@ -1894,8 +1907,19 @@ class _TemplateScan:
         R = self.R
         if self.folded:
             # (the main template's finds up to this chunk's end: it scans each
-            # chunk before the second template does)
-            ons = self._all_clicks(base - round(self.fs_d), base + n_out, base + self.E + self.C)
+            # chunk before the second template does; and the quick rejected
+            # candidates like the main template and about as loud as the
+            # main clicks, so that main clicks a reverberant room kept from
+            # being accepted do not leave double periods, while the room's
+            # echoes, 7 dB or more quieter, stay out)
+            lo, hi = base - round(self.fs_d), base + n_out
+            ons = self._all_clicks(lo, hi, base + self.E + self.C)
+            quick = np.array(self.quick[bisect.bisect_left(self.quick, lo):
+                                        bisect.bisect_left(self.quick, hi)], dtype=np.int64)
+            if quick.size and ons.size >= 4:
+                like = np.array([m is True for m in self._match_main(quick)], dtype=bool)
+                loud = self._peaks(quick) >= 0.6 * np.percentile(self._peaks(ons), 75)
+                ons = np.union1d(ons, quick[like & loud]).astype(np.int64)
         else:
             ons = self._mains(base - round(self.fs_d), base + n_out)
         if ons.size < 3:
