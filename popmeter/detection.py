@@ -2318,7 +2318,7 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     alternation to see; two more tests then also decide "two": a clear
     two-group split in level and timbre (:func:`_bimodal`: Lloyd's 2-means,
     groups 4 or more pooled standard deviations apart, the smaller holding
-    15 % or more), or quieter clicks arriving at one consistent fraction of
+    15 % or more, and 1 dB or more apart in level or 3 % in ring), or quieter clicks arriving at one consistent fraction of
     the period (:func:`_second_click_phase`).  The louder family is the main
     click (kind 0).
 
@@ -2573,7 +2573,9 @@ def _bimodal(feats: np.ndarray) -> tuple[float, float, np.ndarray]:
     the line joining them, in pooled within-group standard deviations), the
     smaller group's share, and labels (0 for the louder group).  A second
     click family that is often missed does not alternate, but still stands
-    apart in level and timbre; one family with drifting level does not.
+    apart in level and timbre; one family with drifting level does not.  A
+    split whose groups are under 1 dB apart in level and under 3 % in ring
+    has separation 0 (decay times alone do not make two families).
     """
     n = feats.shape[0]
     lvl = feats[:, 0]
@@ -2614,6 +2616,14 @@ def _bimodal(feats: np.ndarray) -> tuple[float, float, np.ndarray]:
     share = float(min(lab.mean(), 1 - lab.mean()))
     if np.median(lvl[lab == 1]) > np.median(lvl[lab == 0]):
         lab = 1 - lab
+    # two groups alike in level (under 1 dB apart) and ring (under 3 %) are
+    # not two families: a reverberant room splits the measured decay times
+    # of one family (one group's decays twice the other's, same level, same
+    # ring)
+    if (abs(float(np.median(lvl[lab == 0]) - np.median(lvl[lab == 1]))) < 1.0
+            and abs(float(np.median(feats[lab == 0, 1]) - np.median(feats[lab == 1, 1])))
+            < math.log(1.03)):
+        return 0.0, share, lab
     return sep, share, lab
 
 

@@ -617,3 +617,26 @@ def test_reverberant_two_click_engine_keeps_its_period_where_main_clicks_are_rej
     assert recall2 >= 0.85
     assert p >= 0.98
     assert res.clicks_per_cycle == 2
+
+
+def test_decay_times_alone_do_not_make_two_families():
+    # one click family whose measured decay times fall into two groups (a
+    # reverberant room does that: 6 ms and 13 ms here, at random), same
+    # level and ring: one click per cycle.  Before the level-or-ring
+    # condition, the two-means split (Lloyd 1982) called this two families.
+    rng = np.random.default_rng(3)
+    n = 200
+    t = 1.0 + np.cumsum(np.full(n, 1 / 12.0) * (1 + 0.01 * rng.standard_normal(n)))
+    decay = np.where(rng.random(n) < 0.3, 0.013, 0.006) * (1 + 0.05 * rng.standard_normal(n))
+    clicks = [Click(time_s=float(ti), sample=round(ti * FS),
+                    level_dbfs=float(-12 + 0.3 * rng.standard_normal()),
+                    strength=20.0, ring_hz=float(1200 * (1 + 0.003 * rng.standard_normal())),
+                    decay_s=float(d)) for ti, d in zip(t, decay)]
+    _out, cpc = assign_kinds(clicks)
+    assert cpc == 1
+    # the same clicks with the 30 % group 3 dB quieter are two families
+    quieter = [Click(time_s=c.time_s, sample=c.sample,
+                     level_dbfs=c.level_dbfs - (3.0 if c.decay_s > 0.0095 else 0.0),
+                     strength=20.0, ring_hz=c.ring_hz, decay_s=c.decay_s) for c in clicks]
+    _out, cpc = assign_kinds(quieter)
+    assert cpc == 2
