@@ -1391,8 +1391,10 @@ class _TemplateScan:
         aligned first on the peak of its 1 ms envelope at the ring frequency
         found there (the mean power spectrum over that of the window before),
         then three times on the average by correlation (within +-0.7 ms), and
-        cut from ``P`` before the average's onset (its sharpest energy rise,
-        refined by the AIC change point).  The phase is the median delay of
+        cut from ``P`` before the average's onset (its sharpest energy rise
+        where the phase lies within the bins that rose -- a room's reflection
+        of the main click just before may rise more sharply -- refined by the
+        AIC change point).  The phase is the median delay of
         the aligned examples over the local period.  The template is kept
         when:
 
@@ -1402,7 +1404,8 @@ class _TemplateScan:
         * the average's energy rises 5 dB or more within 0.5 ms at the onset
           (over the 2 ms before): a click starts abruptly;
         * it is not the main click again (correlation 0.95 or less);
-        * the phase lies within the bins that rose.
+        * the phase lies within the bins that rose (or the next one: the
+          refinement may move the onset up to 1 ms past the rise).
 
         Returns True when the second template and the second click's phase
         were set.  ``upto`` (decimated) is where the main template has
@@ -1564,7 +1567,16 @@ class _TemplateScan:
         wide = X[rows[:, None], (g - q)[:, None] + np.arange(q + L // 2)[None, :]].mean(axis=0)
         ce = np.concatenate([[0.0], np.cumsum(wide * wide)])
         s5, s20 = round(0.0005 * fs), round(0.002 * fs)
-        t = np.arange(s20 + s5, wide.size - s5)
+        # (where the phase lies within the bins that rose: wide[j] is, in
+        # cycle k, off_k + j samples after the main click; a reflection of the
+        # main click before the second click may rise more sharply)
+        off = float(np.median(starts + self.b0 + g - q - st_k))
+        med_loc = float(np.median(loc_k))
+        j_lo = max(s20 + s5, math.ceil(fr[kb - 2] * med_loc - off))
+        j_hi = min(wide.size - s5, math.floor(fr[min(kb + 1, nb)] * med_loc - off) + 1)
+        if j_hi <= j_lo:
+            return False
+        t = np.arange(j_lo, j_hi)
         rise = (ce[t + s5] - ce[t]) / s5 / ((ce[t - s5] - ce[t - s5 - s20]) / s20 + 1e-30)
         tr = int(t[int(np.argmax(rise))])
         sharp = float(10 * np.log10(rise.max() + 1e-30))
@@ -1580,7 +1592,8 @@ class _TemplateScan:
         # over the local period; it must lie within the bins that rose (in
         # noise single examples scatter, the average does not)
         phase = float(np.median((starts + self.b0 + on_col - st_k) / loc_k))
-        consistent = fr[kb - 2] <= phase <= fr[kb + 1] if kb + 1 <= nb else False
+        # (the onset refinement may move it up to 1 ms past the rise: one bin more)
+        consistent = fr[kb - 2] <= phase <= fr[min(kb + 2, nb)]
         self.fold_info.update(agree=agree, like_main=like_main, ring_hz=f2, sharp=sharp,
                               phase=phase, kb=kb)
         if agree < 0.5 or like_main > 0.95 or not consistent or sharp < 5.0:

@@ -640,3 +640,19 @@ def test_decay_times_alone_do_not_make_two_families():
                      strength=20.0, ring_hz=c.ring_hz, decay_s=c.decay_s) for c in clicks]
     _out, cpc = assign_kinds(quieter)
     assert cpc == 2
+
+
+def test_fold_takes_the_second_click_not_the_rooms_reflection_before_it():
+    # a two-click engine at 16 Hz in a reverberant room, 20 dB, generator
+    # levels (seed 5): the fold finds the rise at the second click's phase,
+    # but a reflection of the main click 6 ms before it rose more sharply in
+    # the average, so the onset landed there and the fold was refused:
+    # second-click recall 0.000 and one click per cycle before the onset was
+    # sought where the bins rose, 0.915 and two after (mir_eval, +-5 ms)
+    x, truth, fs = _render(click_to_noise_db=20.0, seed=5, clicks_per_cycle=2,
+                           reverb_rt60_s=0.5, steady_rate_hz=16.0, duration_s=40.0)
+    res = detect_clicks(x, fs)
+    recall2, p = _second_recall_and_precision(res, truth)
+    assert res.clicks_per_cycle == 2
+    assert recall2 >= 0.8
+    assert p >= 0.98
