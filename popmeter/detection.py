@@ -1118,7 +1118,9 @@ class _TemplateScan:
     under 0.55 with it (accepted ones, and rejected candidates with a clear
     onset and ring) are collected; once a group of 6 or more of them forms
     (the brighter, shorter second click of a two-click engine), and its
-    average is not the main template again, it gives a second template.  The
+    average is not the main template again (correlation over 0.7) nor rings
+    where the main click rings (within 8 %: the main click smeared by the
+    room or by noise; that group is dropped), it gives a second template.  The
     second click's delay after its main click, as a fraction of the period
     before, is learnt from that group (median, when the interquartile range
     is 0.05 or less).  When no such group forms (second clicks too weak for
@@ -1332,6 +1334,15 @@ class _TemplateScan:
         if (other is not None and slot is not self.slots[0]
                 and float(np.max(np.abs(np.correlate(np.pad(other, A), h, "valid")))) > 0.7):
             return False  # the main click again
+        if slot is self.slots[1] and abs(math.log(self._peak_hz(h) / self.slots[0][1])) < 0.08:
+            # rings where the main click rings (within 8 %), with another
+            # waveform: the main click smeared by the room or by noise, not a
+            # second click, whose modes ring apart; these examples go, so
+            # that another family can form
+            gone = set(fam.tolist())
+            self.examples = [e for i, e in enumerate(self.examples) if i not in gone]
+            self.example_onsets = [o for i, o in enumerate(self.example_onsets) if i not in gone]
+            return False
         if slot is self.slots[1]:
             self.phase = self._learn_phase([self.example_onsets[i] for i in fam.tolist()])
             if self.phase is None and self._folds < 4:
@@ -1339,17 +1350,21 @@ class _TemplateScan:
         self._install(slot, h)
         return True
 
-    def _install(self, slot: list, h: np.ndarray) -> None:
-        """Make ``h`` (zero mean, unit norm, onset ``P`` samples in) the template of ``slot``."""
+    def _peak_hz(self, h: np.ndarray) -> float:
+        """Frequency (Hz) of the largest spectral peak of ``h`` within the band mask."""
         nf = 2 ** 18  # (ring frequency to 0.1 Hz at 24 kHz)
         spec = np.abs(sp_fft.rfft(h, n=nf))
         fr = np.arange(spec.size) * (self.fs_d / nf)
         spec[(fr < 300.0) | (fr > 0.45 * self.fs_d)] = 0.0
+        return float(fr[int(np.argmax(spec))])
+
+    def _install(self, slot: list, h: np.ndarray) -> None:
+        """Make ``h`` (zero mean, unit norm, onset ``P`` samples in) the template of ``slot``."""
         # (the conjugate spectrum of a block with the band mask folded in,
         # below half the rate only: see _envelope)
         slot[0] = (np.conj(sp_fft.rfft(h, n=self.M)).astype(np.complex64)
                    * self.mask)[:self.M // 2]
-        slot[1] = float(fr[int(np.argmax(spec))])
+        slot[1] = self._peak_hz(h)
         slot[2] = h
         # the floor estimator's value on noise alone, relative to the median
         # (white Gaussian noise, fixed seed: the same on every run)

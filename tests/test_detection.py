@@ -656,3 +656,20 @@ def test_fold_takes_the_second_click_not_the_rooms_reflection_before_it():
     assert res.clicks_per_cycle == 2
     assert recall2 >= 0.8
     assert p >= 0.98
+
+
+def test_a_group_ringing_where_the_main_click_rings_is_not_the_second_family():
+    # a two-click engine at 12 dB, generator levels (seed 3, 60 s): faint
+    # start-up and fade pops, their waveforms blurred by noise, formed the
+    # first group unlike the main template; it rang at the main click's
+    # frequency and became the second template, and the true second clicks
+    # were never found: recall of them 0.002 and one click per cycle before
+    # such a group was dropped, 0.72 and two after (mir_eval, +-5 ms)
+    x, truth, fs = _render(click_to_noise_db=12.0, seed=3, clicks_per_cycle=2,
+                           duration_s=60.0, heating_s=4.0, startup_s=8.0, fade_s=8.0,
+                           after_s=3.0)  # (the generator's own phases)
+    res = detect_clicks(x, fs)
+    recall2, p = _second_recall_and_precision(res, truth)
+    assert res.clicks_per_cycle == 2
+    assert recall2 >= 0.6
+    assert p >= 0.98
