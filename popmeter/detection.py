@@ -868,7 +868,9 @@ class ClickDetector:
         # peak may be noise
         nav = self._bp_len
         seg = _rows(y, y_at + s0 - nav // 2, search + nav)
-        cs = np.cumsum(seg * self._demod[[c.band for c in cands]], axis=1)
+        prod = self._demod[[c.band for c in cands]]  # (a copy, worked on in place)
+        prod *= seg
+        cs = np.cumsum(prod, axis=1, out=prod)
         band_e = np.abs(cs[:, nav:nav + search] - cs[:, :search])
         pk = s0 + np.argmax(band_e, axis=1)
         # fine: AIC change point (Maeda 1985) on the broadband window [pk - pre, pk + post)
@@ -934,11 +936,12 @@ class ClickDetector:
         pre = _rows(y, on - gap - m, m)
         taper = self._taper(m)
         spec = sp_fft.rfft(tail * taper, n=self._nfft_ring, axis=1)
-        power = spec.real ** 2 + spec.imag ** 2
         pspec = sp_fft.rfft(pre * taper[::-1], n=self._nfft_ring, axis=1)
-        ppow = pspec.real ** 2 + pspec.imag ** 2
         lo_b, hi_b = self._ring_bins
-        band = power[:, lo_b:hi_b]
+        # (the power only of the bins read: the ring's band here, 7 around its
+        # peak below)
+        sb = spec[:, lo_b:hi_b]
+        band = sb.real ** 2 + sb.imag ** 2
         nbb = band.shape[1]
         kb = np.argmax(band, axis=1)
         r_ = np.arange(k)
@@ -960,8 +963,9 @@ class ClickDetector:
         # ring-to-noise: the same bins before the onset
         kk = lo_b + kb
         win = kk[:, None] + np.arange(-3, 4)[None, :]
-        ring_snr = 10 * np.log10((power[r_[:, None], win].sum(axis=1) + 1e-30)
-                                 / (ppow[r_[:, None], win].sum(axis=1) + 1e-30))
+        sw, pw = spec[r_[:, None], win], pspec[r_[:, None], win]
+        ring_snr = 10 * np.log10(((sw.real ** 2 + sw.imag ** 2).sum(axis=1) + 1e-30)
+                                 / ((pw.real ** 2 + pw.imag ** 2).sum(axis=1) + 1e-30))
         # ring-to-noise on the first 6 ms only (for the second look): short,
         # bright clicks (a two-click engine's second click) have little left
         # after that; only where the full-length tests fail
@@ -1094,15 +1098,30 @@ def _aic_split_rows(aw: np.ndarray) -> np.ndarray:
     """
     n = aw.shape[1]
     c1 = np.cumsum(aw, axis=1)
-    c2 = np.cumsum(aw * aw, axis=1)
+    sq = aw * aw
+    c2 = np.cumsum(sq, axis=1, out=sq)
     kk = np.arange(2, n - 3, dtype=np.float64)  # length of the first segment
     nk = n - kk
     s1, q1 = c1[:, 1:n - 4], c2[:, 1:n - 4]
     s2, q2 = c1[:, -1:] - s1, c2[:, -1:] - q1
-    var1 = np.maximum(q1 / kk - (s1 / kk) ** 2, 1e-30)
-    var2 = np.maximum(q2 / nk - (s2 / nk) ** 2, 1e-30)
-    aic = kk * np.log(var1) + (nk - 1) * np.log(var2)
+    # (each step in place, in the order of
+    # kk * log(max(q1 / kk - (s1 / kk) ** 2, 1e-30)) + (nk - 1) * log(...))
+    aic = _log_var(q1, s1, kk)
+    aic *= kk
+    rest = _log_var(q2, s2, nk)
+    rest *= nk - 1
+    aic += rest
     return 2 + np.argmin(aic, axis=1)
+
+
+def _log_var(q: np.ndarray, s: np.ndarray, n: np.ndarray) -> np.ndarray:
+    """``np.log(np.maximum(q / n - (s / n) ** 2, 1e-30))`` (float64), the same steps in place."""
+    m = np.divide(s, n)
+    np.square(m, out=m)
+    out = np.divide(q, n)
+    out -= m
+    np.maximum(out, 1e-30, out=out)
+    return np.log(out, out=out)
 
 
 class _TemplateScan:
@@ -1215,6 +1234,7 @@ class _TemplateScan:
         self.mask = ((f >= 300.0) & (f <= 0.45 * fs_d)).astype(np.float32)
         self._spec_key: int | None = None  # chunk whose block spectra are in _spec
         self._spec = np.zeros((0, self.M // 2), dtype=np.complex64)
+        self._consts: dict[int, tuple] = {}  # see _scan_consts
         # second template by folding (see _fold_second): tried at fixed places
         # in the stream, so the result does not depend on block sizes
         self.fold_every = round(5.0 * fs_d)  # decimated samples between folds
@@ -1766,9 +1786,9 @@ class _TemplateScan:
         on = np.array(self.onsets[i0:i1], dtype=np.int64) - base
         r_near = round(0.010 * self.fs_d)  # within 10 ms of an accepted click
         expect = si == 1 and self.phase is not None
-        # (as a mask only for the expected-click search; the free scan asks at its peaks)
-        near = (_cover(-((r_near - on) // R), (on + r_near) // R + 1, n_env) if expect
-                else None)
+        # (for the expected-click search, the envelope samples [near_lo, near_hi)
+        # of each accepted click, in order; the free scan asks at its peaks)
+        near = (-((r_near - on) // R), (on + r_near) // R + 1)
         # noise level: the envelope's median per 10 ms bin; the floor is the
         # lower decile of those medians over each second of the chunk and
         # its margins (robust to clicks covering up to 90 % of the time),
@@ -1784,16 +1804,16 @@ class _TemplateScan:
         g = G // R  # envelope samples per bin
         nb = n_env // g
         bm = self._bin_medians(env_s)
-        S = self.S
-        spans = [(k * S // G, (k * S + S + self.E + self.E2) // G) for k in range(self.C // S)]
+        spans, sec_of_bin, offs = self._scan_consts(nb)
         floors = np.array([float(_percentile(bm[u:v], 10)) for u, v in spans]) / self.slots[si][4]
         # (per bin: the floor of the second its start lies in)
-        floor = floors[np.clip((np.arange(nb + 1) * G - self.E) // S, 0, floors.size - 1)]
+        floor = floors[sec_of_bin]
         # bins where accepted clicks (and their rings) fill the envelope: not
         # used as the local level before a point (a second click follows its
         # main one); a bin is busy when [onset - L, onset + E2 + E) reaches it
-        b_lo = np.clip(on - self.L, 0, n_out)
-        b_hi = np.clip(on + self.E2 + self.E, 0, n_out)
+        # (np.clip's checks cost more than the work on these few integers)
+        b_lo = np.minimum(np.maximum(on - self.L, 0), n_out)
+        b_hi = np.minimum(np.maximum(on + self.E2 + self.E, 0), n_out)
         reach = b_hi > b_lo
         busy = _cover(b_lo[reach] // G, (b_hi[reach] + G - 1) // G, nb)
         bm_local = np.where(busy, 0.0, bm)
@@ -1810,10 +1830,9 @@ class _TemplateScan:
         def level_at(j: np.ndarray | int) -> np.ndarray:
             return lvl[np.minimum(j // g, lvl.size - 1)]
 
-        # the peak tests' spans, in envelope samples
-        r1, r2 = round(0.005 * self.fs_d / R), round(0.012 * self.fs_d / R)
+        # the peak tests' spans, in envelope samples (offsets: 1 .. r1, 1 .. r2, l2 .. l1)
         l1 = round((self.L + round(0.004 * self.fs_d)) / R)
-        l2 = round((self.L + round(0.001 * self.fs_d)) / R)
+        off_r1, off_r2, off_l = offs
         j0, j1 = -(-self.E // R), min(-(-(self.E + self.C) // R), n_env - 1)
         # (each test on the candidates the ones before left standing; first a
         # bound every peak over the threshold passes: above it times the lowest level)
@@ -1827,10 +1846,9 @@ class _TemplateScan:
         c = c[env[c] / np.maximum(level_at(c), 1e-30) >= self.threshold]
         last = n_env - 1  # (indices past the end clipped: env >= 0 and the end is in the window)
         c = c[base + R * c - R * l1 >= 0]  # the stream's start is no reference
-        c = c[env[c] > env[c[:, None] - np.arange(1, r1 + 1)[None, :]].max(axis=1)]
-        c = c[env[c] >= env[np.minimum(c[:, None] + np.arange(1, r2 + 1)[None, :], last)
-                            ].max(axis=1)]
-        c = c[env[c] >= 2.0 * env[c[:, None] - np.arange(l2, l1 + 1)[None, :]].max(axis=1)]
+        c = c[env[c] > env[c[:, None] - off_r1].max(axis=1)]
+        c = c[env[c] >= env[np.minimum(c[:, None] + off_r2, last)].max(axis=1)]
+        c = c[env[c] >= 2.0 * env[c[:, None] - off_l].max(axis=1)]
         found = c.tolist()
         if expect:
             found = found + self._expected(base, n_out, env, floor, near)
@@ -1870,8 +1888,31 @@ class _TemplateScan:
                                      level_dbfs=round(20 * math.log10(max(peak, 1e-10)), 3),
                                      strength=round(float(st), 3), ring_hz=ring, decay_s=None))
 
+    def _scan_consts(self, nb: int) -> tuple[list[tuple[int, int]], np.ndarray, tuple]:
+        """What every chunk's scan with ``nb`` 10 ms bins shares (made once).
+
+        The floor's spans (bins of each second of the chunk with its
+        margins), the second each bin's start lies in (one bin past the end
+        too), and the offsets (envelope samples, as rows) of the peak tests:
+        1 .. r1 before, 1 .. r2 after, l2 .. l1 before.
+        """
+        got = self._consts.get(nb)
+        if got is None:
+            R, G, S = self.R, self.G, self.S
+            spans = [(k * S // G, (k * S + S + self.E + self.E2) // G)
+                     for k in range(self.C // S)]
+            sec = (np.arange(nb + 1) * G - self.E) // S
+            sec = np.minimum(np.maximum(sec, 0), len(spans) - 1)
+            r1, r2 = round(0.005 * self.fs_d / R), round(0.012 * self.fs_d / R)
+            l1 = round((self.L + round(0.004 * self.fs_d)) / R)
+            l2 = round((self.L + round(0.001 * self.fs_d)) / R)
+            offs = (np.arange(1, r1 + 1)[None, :], np.arange(1, r2 + 1)[None, :],
+                    np.arange(l2, l1 + 1)[None, :])
+            got = self._consts[nb] = (spans, sec, offs)
+        return got
+
     def _expected(self, base: int, n_out: int, env: np.ndarray, floor: np.ndarray,
-                  near: np.ndarray) -> list[int]:
+                  near: tuple[np.ndarray, np.ndarray]) -> list[int]:
         """Second clicks where the cycle puts them (bounded search, lower threshold).
 
         For each main click of the chunk, the second click is expected
@@ -1885,8 +1926,9 @@ class _TemplateScan:
         (the clicks are deep in noise, where a click's likeness to the
         template is uncertain), every accepted click but those that follow
         their click at the phase and are followed by the next at the rest of
-        the period.  ``env`` holds every R-th output sample and ``near`` marks
-        its samples within 10 ms of an accepted click; ``floor`` is the floor
+        the period.  ``env`` holds every R-th output sample and ``near`` holds
+        the starts and ends (both non-decreasing) of its spans within 10 ms of
+        the accepted clicks; ``floor`` is the floor
         per 10 ms bin (and one past the end); returns indices into ``env``.
         """
         R = self.R
@@ -1918,8 +1960,7 @@ class _TemplateScan:
         # an accepted click
         a = np.maximum(-((half - pred) // R), 1)
         b = np.minimum((pred + half) // R + 1, env.size - 1)
-        cn = np.concatenate([[0], np.cumsum(near)])
-        keep = (a < b) & (cn[np.maximum(b, a)] == cn[a])
+        keep = (a < b) & ~_meets(near[0], near[1], a, b)
         a, b = a[keep], b[keep]
         if a.size == 0:
             return []
@@ -2044,9 +2085,25 @@ def _row_dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 def _cover(starts: np.ndarray, ends: np.ndarray, n: int) -> np.ndarray:
     """Mask of length n, True within the intervals [start, end) (clipped to 0..n)."""
     mask = np.zeros(n, dtype=bool)
-    for a, b in zip(np.clip(starts, 0, n).tolist(), np.clip(ends, 0, n).tolist()):
+    for a, b in zip(np.minimum(np.maximum(starts, 0), n).tolist(),
+                    np.minimum(np.maximum(ends, 0), n).tolist()):
         mask[a:b] = True
     return mask
+
+
+def _meets(lo: np.ndarray, hi: np.ndarray, a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """Whether each span [a, b) shares a point with one of the spans [lo, hi).
+
+    ``lo`` and ``hi`` are non-decreasing (so the first span ending after a
+    is the only one to ask) and ``lo < hi``; the same as asking a mask of
+    the spans [lo, hi) (:func:`_cover`) for a True in [a, b), without
+    building it.
+    """
+    i = np.searchsorted(hi, a, side="right")  # the first span with hi > a
+    out = np.zeros(a.shape, dtype=bool)
+    has = i < hi.size
+    out[has] = lo[i[has]] < b[has]
+    return out
 
 
 def _percentile(x: np.ndarray, q: float) -> np.floating:

@@ -9,6 +9,7 @@ from popmeter.detection import (
     _aic_split_rows,
     _cover,
     _local_periods,
+    _meets,
     _percentile,
     _row_dots,
     _rows,
@@ -42,6 +43,25 @@ def test_cover_equals_difference_counts():
         np.add.at(edges, np.clip(starts, 0, n), 1)
         np.add.at(edges, np.clip(ends, 0, n), -1)
         assert np.array_equal(_cover(starts, ends, n), np.cumsum(edges[:-1]) > 0)
+
+
+def test_meets_equals_a_mask_and_its_running_count():
+    # reference: the plain form it replaces, a boolean mask of the spans
+    # (difference counts, numpy.add.at) and "its running count differs at a and b"
+    rng = np.random.default_rng(12)
+    n = 400
+    for _ in range(300):
+        on = np.sort(rng.integers(-60, n + 60, rng.integers(0, 25)))
+        width = int(rng.integers(1, 40))
+        lo, hi = on - width, on + width + 1  # (non-decreasing, lo < hi)
+        edges = np.zeros(n + 1, dtype=np.int64)
+        np.add.at(edges, np.clip(lo, 0, n), 1)
+        np.add.at(edges, np.clip(hi, 0, n), -1)
+        cn = np.concatenate([[0], np.cumsum(np.cumsum(edges[:-1]) > 0)])
+        a = rng.integers(0, n, 50)
+        b = np.minimum(a + rng.integers(-5, 30, 50), n)
+        expected = (a < b) & (cn[np.maximum(a, b)] != cn[a])
+        assert np.array_equal((a < b) & _meets(lo, hi, a, b), expected)
 
 
 def test_rows_equals_fancy_indexing():
