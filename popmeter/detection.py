@@ -423,7 +423,7 @@ class ClickDetector:
         self._decided = 0  # frames decided by the peak picker
         self._pending: list[_Candidate] = []
         self._out: list[Click] = []
-        self._over_hist = np.zeros((0, nb))
+        self._over_hist = np.zeros((0, nb), dtype=np.float32)
         self._strong_hist: list[tuple[int, int]] = []
         self._typ_key: tuple[int, int] | None = None
         self._typ_cache: np.ndarray | None = None
@@ -562,22 +562,31 @@ class ClickDetector:
             levels += np.float32(1e-13)
             np.log10(levels, out=levels)
             levels *= 10.0
-            allv = np.vstack([self._L_tail, levels])
             lag = self._lag
-            # row i of allv is frame f0 - (lag + 1) + i, so the reference of
-            # frame f0 + k, max(L[t - lag], L[t - lag - 1]), is rows k + 1 and k
-            cur = levels
-            ref = np.fmax(allv[1:1 + levels.shape[0]], allv[0:levels.shape[0]])
-            rise = cur - ref  # the first frames compare with -inf: no rise is counted there
-            self._L_tail = allv[-(lag + 1):]
+            m = lag + 1
+            nf = levels.shape[0]
+            # the reference of frame t, max(L[t - lag], L[t - lag - 1]): rows
+            # k + 1 and k of the levels of frames f0 - m ... (the kept tail, then
+            # this block's), without joining them: the first m frames from the
+            # tail and this block's start, the others from this block alone
+            head = np.vstack([self._L_tail, levels[:m]])
+            rise = np.empty_like(levels)
+            np.fmax(head[1:1 + min(m, nf)], head[:min(m, nf)], out=rise[:m])
+            if nf > m:
+                np.fmax(levels[1:nf - lag], levels[:nf - m], out=rise[m:])
+            # (the first frames compare with -inf: no rise is counted there)
+            np.subtract(levels, rise, out=rise)
+            self._L_tail = (levels[-m:].copy() if nf >= m
+                            else np.vstack([self._L_tail, levels])[-m:])
             self._frames = avail
             # ring buffer of the last stat_win frames' levels (row = frame mod stat_win);
             # written in the order the statistics schedule needs them
             self._lev_pending.append((f0, levels))
-            # the onset envelope per bin, written after the kept history (float64,
-            # the dtype the history has always had)
+            # the onset envelope per bin, written after the kept history (float32:
+            # level minus median, both float32; every reader takes the values as
+            # they are or in float64, which holds them exactly)
             kept = self._over_hist.shape[0]
-            over = np.zeros((kept + levels.shape[0], levels.shape[1]))
+            over = np.zeros((kept + levels.shape[0], levels.shape[1]), dtype=np.float32)
             over[:kept] = self._over_hist
             z, zb = self._zscores(f0, rise, levels, over[kept:])
             self._over_hist = over
