@@ -954,7 +954,7 @@ class ClickDetector:
         nbb = band.shape[1]
         kb = np.argmax(band, axis=1)
         r_ = np.arange(k)
-        db = 10 * np.log10(band[r_[:, None], np.clip(kb[:, None] + np.arange(-1, 2), 0, nbb - 1)]
+        db = 10 * np.log10(band[r_[:, None], _clip_int(kb[:, None] + np.arange(-1, 2), 0, nbb - 1)]
                            + 1e-30)
         # tonality: peak over the median of the neighbourhood (+-25 % in frequency)
         # (per click, so that the result does not depend on which clicks are
@@ -963,7 +963,7 @@ class ClickDetector:
         half = np.maximum(4, (0.25 * (lo_b + kb)).astype(np.int64))
         big = int(half.max()) if k else 4
         offs = np.arange(-big, big + 1)[None, :]
-        nbh = np.clip(kb[:, None] + offs, 0, nbb - 1)
+        nbh = _clip_int(kb[:, None] + offs, 0, nbb - 1)
         local = band[r_[:, None], nbh]
         local = np.where(offs < -half[:, None], -np.inf,
                          np.where(offs > half[:, None], np.inf, local))
@@ -992,7 +992,7 @@ class ClickDetector:
             shpp = (shpre.real ** 2 + shpre.imag ** 2)[:, lo_s:hi_s]
             kbs = np.argmax(shp, axis=1)
             rn = np.arange(need.size)[:, None]
-            ws = np.clip(kbs[:, None] + np.arange(-1, 2)[None, :], 0, shp.shape[1] - 1)
+            ws = _clip_int(kbs[:, None] + np.arange(-1, 2)[None, :], 0, shp.shape[1] - 1)
             ring_snr_s[need] = 10 * np.log10((shp[rn, ws].sum(axis=1) + 1e-30)
                                              / (shpp[rn, ws].sum(axis=1) + 1e-30))
         # quadratic interpolation of the log magnitude (Smith & Serra 1987)
@@ -1820,9 +1820,8 @@ class _TemplateScan:
         # bins where accepted clicks (and their rings) fill the envelope: not
         # used as the local level before a point (a second click follows its
         # main one); a bin is busy when [onset - L, onset + E2 + E) reaches it
-        # (np.clip's checks cost more than the work on these few integers)
-        b_lo = np.minimum(np.maximum(on - self.L, 0), n_out)
-        b_hi = np.minimum(np.maximum(on + self.E2 + self.E, 0), n_out)
+        b_lo = _clip_int(on - self.L, 0, n_out)
+        b_hi = _clip_int(on + self.E2 + self.E, 0, n_out)
         reach = b_hi > b_lo
         busy = _cover(b_lo[reach] // G, (b_hi[reach] + G - 1) // G, nb)
         bm_local = np.where(busy, 0.0, bm)
@@ -1911,7 +1910,7 @@ class _TemplateScan:
             spans = [(k * S // G, (k * S + S + self.E + self.E2) // G)
                      for k in range(self.C // S)]
             sec = (np.arange(nb + 1) * G - self.E) // S
-            sec = np.minimum(np.maximum(sec, 0), len(spans) - 1)
+            sec = _clip_int(sec, 0, len(spans) - 1)
             r1, r2 = round(0.005 * self.fs_d / R), round(0.012 * self.fs_d / R)
             l1 = round((self.L + round(0.004 * self.fs_d)) / R)
             l2 = round((self.L + round(0.001 * self.fs_d)) / R)
@@ -2069,11 +2068,26 @@ def _windows(x: np.ndarray, length: int) -> np.ndarray:
     """Every window of ``length`` along the last axis of a 2-D x (a read-only view).
 
     The view ``numpy.lib.stride_tricks.sliding_window_view(x, length, axis=1)``
-    makes, without its checks (which cost more than the work on a few rows).
+    makes, without its checks (which cost more than the work on a few rows);
+    for a C-contiguous x, made straight on its memory (a third of the time
+    of ``as_strided``, which the others get).
     """
-    return np.lib.stride_tricks.as_strided(
-        x, shape=(x.shape[0], x.shape[1] - length + 1, length),
-        strides=(x.strides[0], x.strides[1], x.strides[1]), writeable=False)
+    shape = (x.shape[0], x.shape[1] - length + 1, length)
+    strides = (x.strides[0], x.strides[1], x.strides[1])
+    if x.flags.c_contiguous and x.size:
+        out = np.ndarray(shape, dtype=x.dtype, buffer=x, strides=strides)
+        out.flags.writeable = False
+        return out
+    return np.lib.stride_tricks.as_strided(x, shape=shape, strides=strides, writeable=False)
+
+
+def _clip_int(x: np.ndarray, lo: int, hi: int) -> np.ndarray:
+    """``np.clip(x, lo, hi)`` of integers (lo <= hi), without np.clip's checks.
+
+    Those cost more than the work on the few integers of a scan chunk or a
+    batch of candidates.
+    """
+    return np.minimum(np.maximum(x, lo), hi)
 
 
 def _row_dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -2094,8 +2108,7 @@ def _row_dots(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 def _cover(starts: np.ndarray, ends: np.ndarray, n: int) -> np.ndarray:
     """Mask of length n, True within the intervals [start, end) (clipped to 0..n)."""
     mask = np.zeros(n, dtype=bool)
-    for a, b in zip(np.minimum(np.maximum(starts, 0), n).tolist(),
-                    np.minimum(np.maximum(ends, 0), n).tolist()):
+    for a, b in zip(_clip_int(starts, 0, n).tolist(), _clip_int(ends, 0, n).tolist()):
         mask[a:b] = True
     return mask
 

@@ -13,6 +13,7 @@ from popmeter.detection import (
     _percentile,
     _row_dots,
     _rows,
+    _windows,
     _with_neighbours,
 )
 
@@ -70,6 +71,24 @@ def test_rows_equals_fancy_indexing():
     starts = rng.integers(0, 41, 6)
     ref = x[starts[:, None] + np.arange(10)[None, :]]
     assert np.array_equal(_rows(x, starts, 10), ref)
+
+
+def test_windows_equal_sliding_window_view():
+    # reference: numpy.lib.stride_tricks.sliding_window_view, on C-contiguous,
+    # strided (a view with a step), read-only and one-row inputs
+    rng = np.random.default_rng(13)
+    base = rng.standard_normal((5, 61)).astype(np.float32)
+    ro = base.copy()
+    ro.flags.writeable = False
+    for x in (base, base[:, ::2], base[1:3, 5:], ro, base[2][None, :], base[:, :7]):
+        for length in (1, 3, 7):
+            ref = np.lib.stride_tricks.sliding_window_view(x, length, axis=1)
+            got = _windows(x, length)
+            assert got.shape == ref.shape and not got.flags.writeable
+            assert np.array_equal(got, ref)
+            starts = rng.integers(0, x.shape[1] - length + 1, 4)
+            assert np.array_equal(_rows(x[0], starts, length),
+                                  x[0][starts[:, None] + np.arange(length)[None, :]])
 
 
 def test_local_periods_equals_numpy():
