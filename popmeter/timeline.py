@@ -219,7 +219,12 @@ def rolling_median(values: np.ndarray, window: int, *, shrink_edges: bool = True
         return x.copy()
     win = np.lib.stride_tricks.sliding_window_view(x, 2 * half + 1)
     with np.errstate(all="ignore"):
-        out[half : n - half] = np.nanmedian(win, axis=1)
+        if np.isnan(x).any():
+            out[half : n - half] = np.nanmedian(win, axis=1)
+        else:
+            # (no NaN: the same values, the middle of each odd-length window,
+            # without nanmedian's masked arrays)
+            out[half : n - half] = np.median(win, axis=1)
     for i in range(half):
         if shrink_edges:
             out[i] = np.nanmedian(x[: 2 * i + 1])

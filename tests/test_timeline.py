@@ -239,6 +239,26 @@ def test_rolling_median_matches_scipy_in_the_interior():
     assert ours[1] == np.median(x[:3])
 
 
+@pytest.mark.filterwarnings("ignore:All-NaN slice")  # (an end of the shortest series)
+def test_rolling_median_equals_numpy_nanmedian_of_the_windows_exactly():
+    # reference: numpy.nanmedian over each full window (the form used when NaN
+    # are present), bit for bit, with and without NaN and with ties
+    rng = np.random.default_rng(1)
+    for n in (5, 9, 40, 301):
+        for window in (3, 4, 9, 25):
+            x = 10.0 + rng.normal(size=n)
+            if rng.integers(2):
+                x = np.round(x, 1)
+            for with_nan in (False, True):
+                if with_nan:
+                    x = x.copy()
+                    x[rng.integers(0, n, 2)] = np.nan
+                half = min(window // 2, (n - 1) // 2)
+                win = np.lib.stride_tricks.sliding_window_view(x, 2 * half + 1)
+                got = rolling_median(x, window)[half : n - half]
+                assert np.array_equal(got, np.nanmedian(win, axis=1), equal_nan=True)
+
+
 # --------------------------------------------------------------------------- irregular clicks
 
 
