@@ -1218,6 +1218,10 @@ class _TemplateScan:
         self.example_onsets: list[int] = []
         self.phase: float | None = None  # second click's delay / the period before
         self._is_main: dict[int, bool] = {}  # accepted onset -> like the main template
+        # the same for onsets after the last ones asked, matched in advance (see
+        # _mains), and the main template they were matched with
+        self._main_ahead: dict[int, bool] = {}
+        self._main_ahead_h: np.ndarray | None = None
         # per template slot: [a block's filter spectrum (conjugate, band-masked,
         # first M / 2 bins: see _envelope) or None, ring_hz, time-domain h,
         # next chunk, floor calibration, ring DFT basis]
@@ -1624,9 +1628,39 @@ class _TemplateScan:
         known = self._is_main
         todo = [o for o in self.onsets[i0:i1] if o not in known]
         if todo:
-            for o, m in zip(todo, self._match_main(np.array(todo, dtype=np.int64))):
-                if m is not None:  # (None: no audio kept there; not cached)
-                    known[o] = m
+            # the later onsets whose audio is already kept are matched in the
+            # same batch and set aside (one batch per block of audio instead
+            # of one per chunk); an answer set aside counts only while the
+            # click's audio is still kept, where matching it again would give
+            # it (the main template does not change), and ``known`` fills and
+            # forgets exactly as without them
+            ahead = self._main_ahead
+            if self._main_ahead_h is not self.slots[0][2] or len(ahead) > 4096:
+                ahead.clear()
+                self._main_ahead_h = self.slots[0][2]
+            kept_lo = self.b0 + self.P + self.A  # onsets whose audio is kept (see _match_main)
+            kept_hi = self.b0 + self.buf.size - self.L - self.A + self.P
+            got: dict[int, bool] = {}
+            calc = []
+            for o in todo:
+                m = ahead.pop(o, None)
+                if m is not None and kept_lo <= o <= kept_hi:
+                    got[o] = m
+                else:
+                    calc.append(o)
+            if calc:
+                i2 = bisect.bisect_right(self.onsets, kept_hi)
+                later = [o for o in self.onsets[i1:i2] if o not in ahead and o not in known]
+                res = self._match_main(np.array(calc + later, dtype=np.int64))
+                for o, m in zip(calc, res):
+                    if m is not None:  # (None: no audio kept there; not cached)
+                        got[o] = m
+                for o, m in zip(later, res[len(calc):]):
+                    if m is not None:
+                        ahead[o] = m
+            for o in todo:
+                if o in got:
+                    known[o] = got[o]
             if len(known) > 4096:  # forget the oldest
                 for o in sorted(known)[:2048]:
                     del known[o]
@@ -1857,10 +1891,11 @@ class _TemplateScan:
         c = c[env[c] > env[c[:, None] - off_r1].max(axis=1)]
         c = c[env[c] >= env[np.minimum(c[:, None] + off_r2, last)].max(axis=1)]
         c = c[env[c] >= 2.0 * env[c[:, None] - off_l].max(axis=1)]
-        found = c.tolist()
         if expect:
-            found = found + self._expected(base, n_out, env, floor, near)
-        order = np.unique(np.array(found, dtype=np.int64))
+            order = np.unique(np.concatenate([c, np.array(
+                self._expected(base, n_out, env, floor, near), dtype=np.int64)]))
+        else:
+            order = c  # (sorted and distinct already)
         if order.size == 0:
             return
         of = R * order  # output samples (decimated) of the peaks
