@@ -487,17 +487,27 @@ class ClickDetector:
         if self._q > 1:
             q = self._q
             taps = len(self._aa)
-            ext = np.concatenate([self._aa_hist, x])
-            self._aa_hist = ext[len(ext) - (taps - 1):]
             first = (-start) % q  # offset in x of the first kept sample
-            count = (x.size - first + q - 1) // q
-            # output at input index i: sum_j h[j] x[i - j] (causal FIR); in ext,
-            # input index i sits at i + taps - 1
+            count = max(0, (x.size - first + q - 1) // q)
+            # output at input index i: sum_j h[j] x[i - j] (causal FIR), summed
+            # from zero in the order of j; the first outputs reach back into the
+            # carried history (ext: the history, then the block's first
+            # samples; input index i at i + taps - 1), the others read x alone
+            n_head = min(count, max(0, -(-(taps - 1 - first) // q)))
+            ext = np.concatenate([self._aa_hist, x[:first + n_head * q]])
+            self._aa_hist = (x[x.size - (taps - 1):].copy() if x.size >= taps - 1
+                             else np.concatenate([self._aa_hist, x])[-(taps - 1):])
             dec = np.zeros(count, dtype=np.float32)
             term = np.empty(count, dtype=np.float32)
-            for j in range(taps):
+            head, rest = dec[:n_head], dec[n_head:]
+            for j in range(taps if n_head else 0):
                 at = first + taps - 1 - j
-                dec += np.multiply(self._aa32[j], ext[at:at + (count - 1) * q + 1:q], out=term)
+                head += np.multiply(self._aa32[j], ext[at:at + (n_head - 1) * q + 1:q],
+                                    out=term[:n_head])
+            for j in range(taps if rest.size else 0):
+                at = first + n_head * q - j
+                rest += np.multiply(self._aa32[j], x[at:at + (rest.size - 1) * q + 1:q],
+                                    out=term[n_head:])
         else:
             dec = x
         self._d = np.concatenate([self._d, dec])
@@ -1274,7 +1284,7 @@ class _TemplateScan:
     def feed(self, dec: np.ndarray) -> None:
         self.buf = np.concatenate([self.buf, dec])
         self.n += dec.size
-        if self._band_e is not None:
+        if self._band_e is not None and dec.size:  # (sosfilt refuses an empty block)
             # the band energies the folds read, kept beside the buffer while
             # a fold may still come (each filter's state carried on)
             for j, sos in enumerate(self._fold_bands):
@@ -1816,10 +1826,13 @@ class _TemplateScan:
         s0 = a - self.E - self.P  # decimated index of seg[0]
         n_out = self.C + self.E + self.E2  # output samples (decimated rate)
         m = n_out + self.L - 1
-        seg = np.zeros(m, dtype=np.float32)
-        lo, hi = max(s0, self.b0), min(s0 + m, self.b0 + self.buf.size)
-        if hi > lo:
-            seg[lo - s0:hi - s0] = self.buf[lo - self.b0:hi - self.b0]
+        if s0 >= self.b0 and s0 + m <= self.b0 + self.buf.size:  # (the usual case: a view)
+            seg = self.buf[s0 - self.b0:s0 - self.b0 + m]
+        else:  # (zeros where no audio is kept)
+            seg = np.zeros(m, dtype=np.float32)
+            lo, hi = max(s0, self.b0), min(s0 + m, self.b0 + self.buf.size)
+            if hi > lo:
+                seg[lo - s0:hi - s0] = self.buf[lo - self.b0:hi - self.b0]
         # env[j] <-> the output at R j <-> a click whose onset is at base + R j
         env = self._envelope(seg, hc, a)
         n_env = env.size

@@ -91,6 +91,37 @@ def test_windows_equal_sliding_window_view():
                                   x[0][starts[:, None] + np.arange(length)[None, :]])
 
 
+@pytest.mark.parametrize("fs", [44100, 48000, 64000, 96000])
+def test_decimation_by_any_blocks_equals_one_block_and_scipy_lfilter(fs):
+    # the detector's anti-alias FIR and decimation by q, fed in blocks of 1 to
+    # 7 samples (fewer than q at 64 and 96 kHz, so some blocks keep no sample),
+    # against one block (bit for bit) and against scipy.signal.lfilter with
+    # the same taps, every q-th output kept (float64 reference: float32 apart)
+    from scipy import signal
+
+    x = (np.random.default_rng(14).standard_normal(3000) * 0.3).astype(np.float32)
+    whole = ClickDetector(fs)
+    whole.process(x)
+    q = whole._q
+    ref = signal.lfilter(whole._aa, [1.0], x.astype(np.float64))[::q]
+    # (the detector keeps the decimated samples from _d0 on; the matched
+    # filter's buffer, from b0 on, all of them here)
+    assert whole._d0 + whole._d.size == ref.size == whole._mf.b0 + whole._mf.buf.size
+    np.testing.assert_allclose(whole._d, ref[whole._d0:], rtol=0, atol=1e-6)
+    np.testing.assert_allclose(whole._mf.buf, ref[whole._mf.b0:], rtol=0, atol=1e-6)
+    for sizes in ([1], [1, 2, 3], [7, 1, 1, 5]):
+        det = ClickDetector(fs)
+        i = k = 0
+        while i < x.size:
+            n = sizes[k % len(sizes)]
+            det.process(x[i:i + n])
+            i, k = i + n, k + 1
+        assert det._n_dec == whole._n_dec
+        d = det._d0 - whole._d0
+        assert np.array_equal(det._d, whole._d[d:])
+        assert np.array_equal(det._mf.buf, whole._mf.buf[det._mf.b0 - whole._mf.b0:])
+
+
 def test_local_periods_equals_numpy():
     # reference: numpy.percentile (linear method) and numpy.nanmedian over the
     # 9-wide windows of the edge-padded gaps, the formulation it replaces
