@@ -219,7 +219,12 @@ def rolling_median(values: np.ndarray, window: int, *, shrink_edges: bool = True
         return x.copy()
     win = np.lib.stride_tricks.sliding_window_view(x, 2 * half + 1)
     with np.errstate(all="ignore"):
-        out[half : n - half] = np.nanmedian(win, axis=1)
+        if np.isnan(x).any():
+            out[half : n - half] = np.nanmedian(win, axis=1)
+        else:
+            # (no NaN: the same values, the middle of each odd-length window,
+            # without nanmedian's masked arrays)
+            out[half : n - half] = np.median(win, axis=1)
     for i in range(half):
         if shrink_edges:
             out[i] = np.nanmedian(x[: 2 * i + 1])
@@ -827,25 +832,24 @@ def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray) -> _
     """Cycles from main-click times: a gap of ``r`` local periods is one cycle
     (r < 1.5), ``round(r)`` cycles with filled-in clicks (1.5 <= r < factor)
     or a stall (r >= factor)."""
-    starts: list[float] = []
-    periods: list[float] = []
-    missed: list[int] = []
-    stall_gaps: list[tuple[int, int]] = []
-    # (on Python floats: the same arithmetic as on numpy's, faster one by one)
-    tl, local_l, factor_l = t.tolist(), local.tolist(), factor.tolist()
-    for i in range(max(t.size - 1, 0)):
-        gap = tl[i + 1] - tl[i]
-        r = gap / local_l[i]
-        if r >= factor_l[i]:
-            stall_gaps.append((i, i + 1))
-            continue
-        k = max(1, round(r)) if r >= 1.5 else 1
-        for j in range(k):
-            starts.append(tl[i] + j * gap / k)
-            periods.append(gap / k)
-            missed.append(1 if j > 0 else 0)
+    # (on whole arrays, the arithmetic of the plain loop: per gap i, r = gap / local[i];
+    # a stall if r >= factor[i], else k = round(r) (half to even) cycles when r >= 1.5,
+    # else 1, cycle j starting at t[i] + j * gap / k, lasting gap / k)
+    t = np.asarray(t, dtype=float)
+    n = max(t.size - 1, 0)
+    gap = t[1:] - t[:-1]
+    r = gap / local[:n]
+    stall = r >= factor[:n]
+    go = np.flatnonzero(~stall)
+    rg = r[go]
+    k = np.where(rg >= 1.5, np.round(np.where(rg >= 1.5, rg, 1.0)), 1.0).astype(np.int64)
+    at = np.repeat(go, k)  # the gap of each cycle
+    kc = np.repeat(k, k)
+    j = np.arange(at.size) - np.repeat(np.cumsum(k) - k, k)  # its place within the gap
+    g = gap[at]
+    starts = t[at] + j * g / kc
     return _Cycles(
-        np.array(starts, float), np.array(periods, float), np.array(missed, int), stall_gaps
+        starts, g / kc, (j > 0).astype(int), [(i, i + 1) for i in np.flatnonzero(stall).tolist()]
     )
 
 

@@ -239,6 +239,24 @@ def test_blocks_equal_whole_file(tmp_path, ext, subtype, block_frames):
     np.testing.assert_array_equal(np.concatenate(blocks), ref[:, 0])
 
 
+@pytest.mark.parametrize("ext,fmt", [("wav", "WAV"), ("aiff", "AIFF"), ("flac", "FLAC")])
+def test_pcm16_stream_equals_libsndfile_float_decoding_at_every_code(tmp_path, ext, fmt):
+    # 16-bit PCM is read as integers and scaled by the stream; reference:
+    # libsndfile's own float32 decoding (soundfile, dtype="float32"), for
+    # every one of the 65536 codes, both byte orders (AIFF is big-endian)
+    codes = np.arange(-32768, 32768, dtype=np.int16)
+    codes = np.concatenate([codes, np.random.default_rng(44).permutation(codes)])
+    path = tmp_path / f"codes.{ext}"
+    sf.write(path, np.stack([codes, codes[::-1]], axis=1), 48000, format=fmt,
+             subtype="PCM_16")
+    ref, _ = sf.read(path, dtype="float32")
+    for ch in (0, 1):
+        with open_stream(path, channel=ch, block_frames=4096) as stream:
+            got = np.concatenate(list(stream))
+        assert got.dtype == np.float32
+        np.testing.assert_array_equal(got, ref[:, ch])
+
+
 @needs_ffmpeg
 def test_ffmpeg_blocks_equal_ffmpeg_whole_decode(tmp_path):
     x = np.stack([noise_only(2.0, 48000, seed=42), clicks(2.0, 48000, seed=43)], axis=1)

@@ -9,9 +9,11 @@ from popmeter.detection import (
     _aic_split_rows,
     _cover,
     _local_periods,
+    _meets,
     _percentile,
     _row_dots,
     _rows,
+    _windows,
     _with_neighbours,
 )
 
@@ -44,12 +46,80 @@ def test_cover_equals_difference_counts():
         assert np.array_equal(_cover(starts, ends, n), np.cumsum(edges[:-1]) > 0)
 
 
+def test_meets_equals_a_mask_and_its_running_count():
+    # reference: the plain form it replaces, a boolean mask of the spans
+    # (difference counts, numpy.add.at) and "its running count differs at a and b"
+    rng = np.random.default_rng(12)
+    n = 400
+    for _ in range(300):
+        on = np.sort(rng.integers(-60, n + 60, rng.integers(0, 25)))
+        width = int(rng.integers(1, 40))
+        lo, hi = on - width, on + width + 1  # (non-decreasing, lo < hi)
+        edges = np.zeros(n + 1, dtype=np.int64)
+        np.add.at(edges, np.clip(lo, 0, n), 1)
+        np.add.at(edges, np.clip(hi, 0, n), -1)
+        cn = np.concatenate([[0], np.cumsum(np.cumsum(edges[:-1]) > 0)])
+        a = rng.integers(0, n, 50)
+        b = np.minimum(a + rng.integers(-5, 30, 50), n)
+        expected = (a < b) & (cn[np.maximum(a, b)] != cn[a])
+        assert np.array_equal((a < b) & _meets(lo, hi, a, b), expected)
+
+
 def test_rows_equals_fancy_indexing():
     rng = np.random.default_rng(9)
     x = rng.standard_normal(50).astype(np.float32)
     starts = rng.integers(0, 41, 6)
     ref = x[starts[:, None] + np.arange(10)[None, :]]
     assert np.array_equal(_rows(x, starts, 10), ref)
+
+
+def test_windows_equal_sliding_window_view():
+    # reference: numpy.lib.stride_tricks.sliding_window_view, on C-contiguous,
+    # strided (a view with a step), read-only and one-row inputs
+    rng = np.random.default_rng(13)
+    base = rng.standard_normal((5, 61)).astype(np.float32)
+    ro = base.copy()
+    ro.flags.writeable = False
+    for x in (base, base[:, ::2], base[1:3, 5:], ro, base[2][None, :], base[:, :7]):
+        for length in (1, 3, 7):
+            ref = np.lib.stride_tricks.sliding_window_view(x, length, axis=1)
+            got = _windows(x, length)
+            assert got.shape == ref.shape and not got.flags.writeable
+            assert np.array_equal(got, ref)
+            starts = rng.integers(0, x.shape[1] - length + 1, 4)
+            assert np.array_equal(_rows(x[0], starts, length),
+                                  x[0][starts[:, None] + np.arange(length)[None, :]])
+
+
+@pytest.mark.parametrize("fs", [44100, 48000, 64000, 96000])
+def test_decimation_by_any_blocks_equals_one_block_and_scipy_lfilter(fs):
+    # the detector's anti-alias FIR and decimation by q, fed in blocks of 1 to
+    # 7 samples (fewer than q at 64 and 96 kHz, so some blocks keep no sample),
+    # against one block (bit for bit) and against scipy.signal.lfilter with
+    # the same taps, every q-th output kept (float64 reference: float32 apart)
+    from scipy import signal
+
+    x = (np.random.default_rng(14).standard_normal(3000) * 0.3).astype(np.float32)
+    whole = ClickDetector(fs)
+    whole.process(x)
+    q = whole._q
+    ref = signal.lfilter(whole._aa, [1.0], x.astype(np.float64))[::q]
+    # (the detector keeps the decimated samples from _d0 on; the matched
+    # filter's buffer, from b0 on, all of them here)
+    assert whole._d0 + whole._d.size == ref.size == whole._mf.b0 + whole._mf.buf.size
+    np.testing.assert_allclose(whole._d, ref[whole._d0:], rtol=0, atol=1e-6)
+    np.testing.assert_allclose(whole._mf.buf, ref[whole._mf.b0:], rtol=0, atol=1e-6)
+    for sizes in ([1], [1, 2, 3], [7, 1, 1, 5]):
+        det = ClickDetector(fs)
+        i = k = 0
+        while i < x.size:
+            n = sizes[k % len(sizes)]
+            det.process(x[i:i + n])
+            i, k = i + n, k + 1
+        assert det._n_dec == whole._n_dec
+        d = det._d0 - whole._d0
+        assert np.array_equal(det._d, whole._d[d:])
+        assert np.array_equal(det._mf.buf, whole._mf.buf[det._mf.b0 - whole._mf.b0:])
 
 
 def test_local_periods_equals_numpy():

@@ -19,6 +19,7 @@ from popmeter.timeline import (
     SUMMARY_KEYS,
     _block_medians,
     _block_rates,
+    _cycles_from_gaps,
     _median_pairwise_slope,
     build_timeline,
     rolling_median,
@@ -237,6 +238,63 @@ def test_rolling_median_matches_scipy_in_the_interior():
     assert np.allclose(ours[4:-4], ref[4:-4])
     assert ours[0] == x[0]
     assert ours[1] == np.median(x[:3])
+
+
+def _cycles_by_loop(t, local, factor):
+    # the plain form _cycles_from_gaps replaces: one gap at a time on Python floats
+    starts, periods, missed, stalls = [], [], [], []
+    tl, local_l, factor_l = t.tolist(), local.tolist(), factor.tolist()
+    for i in range(max(t.size - 1, 0)):
+        gap = tl[i + 1] - tl[i]
+        r = gap / local_l[i]
+        if r >= factor_l[i]:
+            stalls.append((i, i + 1))
+            continue
+        k = max(1, round(r)) if r >= 1.5 else 1
+        for j in range(k):
+            starts.append(tl[i] + j * gap / k)
+            periods.append(gap / k)
+            missed.append(1 if j > 0 else 0)
+    return starts, periods, missed, stalls
+
+
+def test_cycles_from_gaps_equals_the_plain_loop():
+    # reference: the loop over gaps on Python floats (Python's round: half to
+    # even), value for value; gaps of 1, 1.5, 2.5 (ties), several and stalls
+    rng = np.random.default_rng(2)
+    for n in (0, 1, 2, 3, 50, 400):
+        period = rng.uniform(0.03, 0.2)
+        mult = rng.choice([1.0, 1.0, 1.0, 1.5, 2.0, 2.5, 3.0, 3.5, 7.0, 12.0], size=max(n - 1, 0))
+        t = 1.0 + np.concatenate([[0.0], np.cumsum(mult * period)])[:n]
+        local = np.full(max(n - 1, 0), period) * rng.choice([1.0, 1.0 + 1e-3], max(n - 1, 0))
+        factor = rng.choice([6.0, 10.0], max(n - 1, 0))
+        cyc = _cycles_from_gaps(t, local, factor)
+        starts, periods, missed, stalls = _cycles_by_loop(t, local, factor)
+        assert np.array_equal(cyc.starts, np.array(starts, float))
+        assert np.array_equal(cyc.periods, np.array(periods, float))
+        assert np.array_equal(cyc.missed, np.array(missed, int))
+        assert cyc.missed.dtype == np.array(missed, int).dtype
+        assert cyc.stall_gaps == stalls
+
+
+@pytest.mark.filterwarnings("ignore:All-NaN slice")  # (an end of the shortest series)
+def test_rolling_median_equals_numpy_nanmedian_of_the_windows_exactly():
+    # reference: numpy.nanmedian over each full window (the form used when NaN
+    # are present), bit for bit, with and without NaN and with ties
+    rng = np.random.default_rng(1)
+    for n in (5, 9, 40, 301):
+        for window in (3, 4, 9, 25):
+            x = 10.0 + rng.normal(size=n)
+            if rng.integers(2):
+                x = np.round(x, 1)
+            for with_nan in (False, True):
+                if with_nan:
+                    x = x.copy()
+                    x[rng.integers(0, n, 2)] = np.nan
+                half = min(window // 2, (n - 1) // 2)
+                win = np.lib.stride_tricks.sliding_window_view(x, 2 * half + 1)
+                got = rolling_median(x, window)[half : n - half]
+                assert np.array_equal(got, np.nanmedian(win, axis=1), equal_nan=True)
 
 
 # --------------------------------------------------------------------------- irregular clicks
