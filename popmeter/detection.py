@@ -2117,7 +2117,8 @@ class _TemplateScan:
         for row, (j, kk) in enumerate(zip(ok.tolist(), k.tolist())):
             f = float(grid[kk])
             if 0 < kk < grid.size - 1:
-                al, be, ga = db[row, kk - 1], db[row, kk], db[row, kk + 1]
+                # (in float64: a float32 ring would reach the clicks and the JSON)
+                al, be, ga = float(db[row, kk - 1]), float(db[row, kk]), float(db[row, kk + 1])
                 den = al - 2 * be + ga
                 if den < 0:
                     f += 0.5 * (al - ga) / den * float(grid[1] - grid[0])

@@ -401,6 +401,13 @@ def test_matched_filter_adds_second_clicks_of_a_two_click_engine():
         _f, p, _r = mir_eval.onset.f_measure(
             np.array([c["time_s"] for c in truth["clicks"]]), est, window=0.005)
         assert p >= 0.98
+        # every feature a plain Python float, as JSON writes it (the
+        # filter's ring was a numpy float32 on its own finds)
+        for c in res.clicks:
+            assert type(c.time_s) is float and type(c.level_dbfs) is float
+            assert type(c.strength) is float
+            assert c.ring_hz is None or type(c.ring_hz) is float
+            assert c.decay_s is None or type(c.decay_s) is float
     assert rec[True] >= rec[False] + 0.08  # +0.12 to +0.21 over seeds 1-5
 
 
