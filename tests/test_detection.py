@@ -480,21 +480,6 @@ def test_a_main_label_where_the_second_click_belongs_becomes_second():
     assert out2[-1] == 0
 
 
-def test_room_echo_of_a_click_is_not_promoted():
-    # a reverberant room (rt60 0.5 s) at 30 dB: during start-up, when the
-    # cycles are long, the echo of each pop some 40 ms later rings exactly
-    # like it; before this check such echoes brought precision down to 0.96
-    x, truth, fs = _render(click_to_noise_db=30.0, seed=2, reverb_rt60_s=0.5,
-                           duration_s=40.0, startup_level_db=0.0, fade_level_db=0.0,
-                           weak_pop_prob=0.0)
-    res = detect_clicks(x, fs)
-    est = np.array([c.time_s for c in res.clicks])
-    _f, p, r = mir_eval.onset.f_measure(
-        np.array([c["time_s"] for c in truth["clicks"]]), est, window=0.005)
-    assert p >= 0.98
-    assert r >= 0.98
-
-
 def _clicks_at(times_s, levels_dbfs):
     return [Click(time_s=t, sample=round(t * FS), level_dbfs=lv, strength=20.0, ring_hz=1200.0,
                   decay_s=0.01, cycle=i) for i, (t, lv) in enumerate(zip(times_s, levels_dbfs))]
@@ -519,12 +504,16 @@ def test_one_click_engine_sets_aside_a_quieter_click_a_fraction_of_a_period_late
     assert _one_per_cycle(few) == (few, [])
 
 
-@pytest.mark.parametrize("seed", [4, 9])
-def test_reverberant_one_click_engine_has_no_echo_clicks(seed):
-    # a reverberant room (rt60 0.5 s) at 30 dB, every pop at that level: the
-    # reverberation swelling again 15-25 ms after a click passed every test
-    # of a click; precision 0.950 / 0.929 (seeds 4 / 9) before the one-click
-    # engine's echoes were set aside, 0.993 / 0.981 after (mir_eval, +-5 ms)
+@pytest.mark.parametrize("seed, min_precision", [(2, 0.98), (4, 0.97), (9, 0.97)])
+def test_reverberant_one_click_engine_has_no_echo_clicks(seed, min_precision):
+    # a reverberant room (rt60 0.5 s) at 30 dB, every pop at that level
+    # (precision and recall by mir_eval, +-5 ms):
+    # - seed 2: during start-up, when the cycles are long, the echo of each
+    #   pop some 40 ms later rings exactly like it; before the second look
+    #   refused such echoes precision was 0.96;
+    # - seeds 4 / 9: the reverberation swelling again 15-25 ms after a click
+    #   passed every test of a click; precision 0.950 / 0.929 before the
+    #   one-click engine's echoes were set aside, 0.993 / 0.981 after
     x, truth, fs = _render(click_to_noise_db=30.0, seed=seed, reverb_rt60_s=0.5,
                            duration_s=40.0, startup_level_db=0.0, fade_level_db=0.0,
                            weak_pop_prob=0.0)
@@ -533,8 +522,8 @@ def test_reverberant_one_click_engine_has_no_echo_clicks(seed):
     _f, p, r = mir_eval.onset.f_measure(
         np.array([c["time_s"] for c in truth["clicks"]]), est, window=0.005)
     assert res.clicks_per_cycle == 1
-    assert p >= 0.97
-    assert r >= 0.99
+    assert p >= min_precision
+    assert r >= 0.98
 
 
 def test_two_ring_families_set_the_kinds_where_alternation_lost_its_phase():
@@ -590,33 +579,20 @@ def test_a_forced_clicks_per_cycle_the_clicks_contradict_gives_a_warning():
     assert any("forced to 2" in w and "like 1 per cycle" in w for w in forced2.warnings)
 
 
-@pytest.mark.parametrize("seed", [3, 4])
-def test_folded_second_template_follows_the_click_not_the_room(seed):
-    # two-click engine in a reverberant room, every pop at 30 dB: the main
-    # click's reverberation fills the second click's place in the cycle; the
-    # folded template weighted by the click's share of the power there finds
-    # the second clicks (recall of them 0.53 and 0.64 on seeds 3 and 4 when
-    # the echo's frequencies were kept; 0.96 and 0.98 now)
-    x, truth, fs = _render(click_to_noise_db=30.0, seed=seed, clicks_per_cycle=2,
-                           reverb_rt60_s=0.5, steady_rate_hz=16.0, duration_s=40.0,
-                           startup_level_db=0.0, fade_level_db=0.0, weak_pop_prob=0.0)
-    res = detect_clicks(x, fs)
-    recall2, p = _second_recall_and_precision(res, truth)
-    assert recall2 >= 0.85
-    assert p >= 0.98
-    assert res.clicks_per_cycle == 2
-
-
-@pytest.mark.parametrize("seed", [7, 10])
-def test_reverberant_two_click_engine_keeps_its_period_where_main_clicks_are_rejected(seed):
-    # a two-click engine at 16 Hz in a reverberant room (rt60 0.5 s) at 20 dB:
-    # the room's field builds up over the cycles, so many main clicks ring
-    # under 8 dB above what was there before and are only taken back at the
-    # end; the search for the second clicks used to see double periods there.
-    # Second-click recall (mir_eval, +-5 ms) 0.235 / 0.672 (seeds 7 / 10)
-    # before the quick, loud, main-like candidates counted for the period;
-    # 0.918 / 0.929 after
-    x, truth, fs = _render(click_to_noise_db=20.0, seed=seed, clicks_per_cycle=2,
+@pytest.mark.parametrize("cnr, seed", [(30.0, 3), (30.0, 4), (20.0, 7), (20.0, 10)])
+def test_reverberant_two_click_engine_finds_its_second_clicks(cnr, seed):
+    # a two-click engine at 16 Hz in a reverberant room (rt60 0.5 s), every
+    # pop at the stated level; second-click recall (mir_eval, +-5 ms):
+    # - 30 dB, seeds 3 / 4: the main click's reverberation fills the second
+    #   click's place in the cycle; the folded template weighted by the
+    #   click's share of the power there follows the click (0.53 / 0.64 when
+    #   the echo's frequencies were kept; 0.96 / 0.98 now);
+    # - 20 dB, seeds 7 / 10: the room's field builds up over the cycles, so
+    #   many main clicks ring under 8 dB above what was there before and are
+    #   only taken back at the end; the search for the second clicks saw
+    #   double periods there (0.235 / 0.672 before the quick, loud, main-like
+    #   candidates counted for the period; 0.918 / 0.929 after)
+    x, truth, fs = _render(click_to_noise_db=cnr, seed=seed, clicks_per_cycle=2,
                            reverb_rt60_s=0.5, steady_rate_hz=16.0, duration_s=40.0,
                            startup_level_db=0.0, fade_level_db=0.0, weak_pop_prob=0.0)
     res = detect_clicks(x, fs)
