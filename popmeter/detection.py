@@ -2474,9 +2474,10 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     alternation to see; two more tests then also decide "two": a clear
     two-group split in level and timbre (:func:`_bimodal`: Lloyd's 2-means,
     groups 4 or more pooled standard deviations apart, the smaller holding
-    15 % or more, and 1 dB or more apart in level or 3 % in ring), or quieter clicks arriving at one consistent fraction of
-    the period (:func:`_second_click_phase`).  The louder family is the main
-    click (kind 0).
+    15 % or more, and 1 dB or more apart in level or 3 % in ring), or
+    quieter clicks arriving at one consistent fraction of the period
+    (:func:`_second_click_phase`).  The louder family is the main click
+    (kind 0).
 
     Parameters
     ----------

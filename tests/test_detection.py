@@ -489,7 +489,7 @@ def test_one_click_engine_sets_aside_a_quieter_click_a_fraction_of_a_period_late
     # a one-click engine at 12 Hz: 40 cycles, an echo 18 ms after every third
     # click 8 dB under it, and one click 18 ms after another only 1 dB under it
     # (one click per cycle is the definition of the engine; the 3 dB margin
-    # and the half period are common practice, no source)
+    # and the half period are our own choices, no published source)
     mains = 1.0 + np.arange(40) / 12.0
     times = list(mains) + [t + 0.018 for t in mains[::3]] + [mains[20] + 0.018]
     levels = [-12.0] * 40 + [-20.0] * len(mains[::3]) + [-13.0]
