@@ -66,8 +66,9 @@ The steps, and the published method each follows:
    the recording's own clicks: a knock rings far lower) and a second look
    that takes back rejected candidates ringing exactly like an accepted
    family (short, bright second clicks).  Once an engine is found to give
-   one click per cycle, a quieter click within half a period after another
-   is its echo and is set aside (:func:`_one_per_cycle`).
+   one click per cycle, a quieter click within half a period after another,
+   or between two clicks a period apart, is an echo and is set aside
+   (:func:`_one_per_cycle`).
 
 9. **Matched-filter pass with the recording's own click** (North 1943;
    Turin, "An introduction to matched filters", IRE Trans. IT-6, 1960): once
@@ -2286,12 +2287,13 @@ def _one_per_cycle(clicks: list[Click], *, share: float = 0.5, quieter_db: float
 
     An engine that gives one click per cycle gives no click a fraction of a
     period after the one before; a quieter click there (``quieter_db`` or
-    more under it, within ``share`` of the local period) is the room's
-    reflection of that click or its reverberation swelling again, and is set
-    aside.  The local period is the median of the 9 intervals around,
-    leaving out those under 0.75 of their upper quartile (which such a
-    click splits).  Fewer than 12 clicks are kept as they are (no period to
-    trust).  Returns (kept with their cycles renumbered, set aside).
+    more under the one before it, and within ``share`` of the local period
+    after it, or between two clicks one local period apart, within 15 %) is
+    the room's reflection of that click or its reverberation swelling again,
+    and is set aside.  The local period is the median of the 9 intervals
+    around, leaving out those under 0.75 of their upper quartile (which such
+    a click splits).  Fewer than 12 clicks are kept as they are (no period
+    to trust).  Returns (kept with their cycles renumbered, set aside).
     """
     n = len(clicks)
     if n < 12:
@@ -2299,7 +2301,11 @@ def _one_per_cycle(clicks: list[Click], *, share: float = 0.5, quieter_db: float
     t = np.array([c.time_s for c in clicks])
     lv = np.array([c.level_dbfs for c in clicks])
     gaps = np.diff(t)
-    echo = np.concatenate([[False], (gaps < share * _local_periods(gaps))
+    per = _local_periods(gaps)  # per gap (before each click from the second on)
+    # (or later in the cycle, where the clicks on either side are one period
+    # apart)
+    across = np.append((t[2:] - t[:-2]) / per[:-1], np.inf)
+    echo = np.concatenate([[False], ((gaps < share * per) | (np.abs(across - 1.0) <= 0.15))
                            & (lv[1:] <= lv[:-1] - quieter_db)])
     if not echo.any():
         return clicks, []

@@ -486,18 +486,25 @@ def _clicks_at(times_s, levels_dbfs):
 
 
 def test_one_click_engine_sets_aside_a_quieter_click_a_fraction_of_a_period_later():
-    # a one-click engine at 12 Hz: 40 cycles, an echo 18 ms after every third
-    # click 8 dB under it, and one click 18 ms after another only 1 dB under it
-    # (one click per cycle is the definition of the engine; the 3 dB margin
-    # and the half period are our own choices, no published source)
+    # a one-click engine at 12 Hz: 40 cycles; an echo 18 ms after every third
+    # click 8 dB under it, and one 58 ms after click 31 (later than half a
+    # period, between two clicks one period apart); one click 18 ms after
+    # another only 1 dB under it; and a main pop 8 dB weaker than the one
+    # before, in its place (one click per cycle is the definition of the
+    # engine; the 3 dB margin, the half period and the 15 % are our own
+    # choices, no published source)
     mains = 1.0 + np.arange(40) / 12.0
-    times = list(mains) + [t + 0.018 for t in mains[::3]] + [mains[20] + 0.018]
-    levels = [-12.0] * 40 + [-20.0] * len(mains[::3]) + [-13.0]
+    echoes_at = list(mains[::3] + 0.018) + [mains[31] + 0.058]
+    times = list(mains) + echoes_at + [mains[20] + 0.018]
+    main_levels = [-12.0] * 40
+    main_levels[25] = -20.0  # a weak pop, not an echo
+    levels = main_levels + [-20.0] * len(echoes_at) + [-13.0]
     order = np.argsort(times)
     clicks = _clicks_at(np.array(times)[order], np.array(levels)[order])
     kept, echoes = _one_per_cycle(clicks)
-    assert sorted(c.time_s for c in echoes) == pytest.approx(sorted(mains[::3] + 0.018))
-    assert len(kept) == 41  # the 1-dB-quieter one stays
+    assert sorted(c.time_s for c in echoes) == pytest.approx(sorted(echoes_at))
+    assert len(kept) == 41  # the 1-dB-quieter one and the weak pop stay
+    assert any(c.time_s == pytest.approx(mains[25]) for c in kept)
     assert [c.cycle for c in kept] == list(range(41))
     # too few clicks to know the period: nothing is set aside
     few = _clicks_at([1.0, 1.018, 1.083, 1.101], [-12.0, -20.0, -12.0, -20.0])
