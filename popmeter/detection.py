@@ -2601,16 +2601,20 @@ def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
 
 
 def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
-    """Relabel as second clicks the "main" clicks that sit where second clicks belong.
+    """Relabel as second clicks the "main" clicks that sit where second clicks belong, and back.
 
     A second click found only by a template like the main click's may be
-    labelled main.  The place of the second click is the median of (second
+    labelled main (and, in a reverberant room, a main click only the second
+    template found, second).  The place of the second click is the median of (second
     click - main click before it) / (the local period: the median of the 9
     main-to-main intervals around, leaving out those under 0.7 of their
     upper quartile), from 8 or more labelled pairs; a main click that
     follows another main click at that fraction (+-0.08) of the period, and
     is followed by the next click at the rest of the period (+-0.08) or by
-    none, is a second click.
+    none, is a second click; a second click one local period (+-0.08) after
+    the main click before it, following that cycle's second click, and
+    followed by the next click at the phase or a period later (+-0.08) or by
+    none, is a main click.
     """
     lab = labels.copy()
     n = times.size
@@ -2642,6 +2646,24 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
         nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
         if abs(here - phase) <= 0.08 and (nxt is None or abs(nxt - (1.0 - phase)) <= 0.08):
             lab[i] = 1
+    # and the other way round: a "second" click one local period (+-0.08)
+    # after the main click before it, following that cycle's second click,
+    # and followed by the next click at the phase or a whole period later (or
+    # by none), is the next main click (one only the second template found)
+    mains = np.flatnonzero(lab == 0)
+    rank = np.cumsum(lab == 0) - 1
+    for i in np.flatnonzero((lab[1:] == 1) & (lab[:-1] == 1)) + 1:
+        if lab[i - 1] != 1:  # (relabelled a step before)
+            continue
+        k = rank[i]  # the main click before
+        if k < 0 or k >= period.size or period[k] <= 0:
+            continue
+        t_p = period[k]
+        one = (times[i] - times[mains[k]]) / t_p
+        nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
+        if abs(one - 1.0) <= 0.08 and (
+                nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08):
+            lab[i] = 0
     return lab
 
 
