@@ -1252,6 +1252,10 @@ class _TemplateScan:
         # correlation, 0-1), to choose between two templates' finds of one click
         self.click_fit: list[float] = []
         self.click_slot: list[int] = []  # which template found each click (0 main, 1 second)
+        # per click found (by onset sample) while both templates exist: its ring
+        # on the other family's grid, for a click the kinds pass gives to the
+        # other family
+        self.other_ring: dict[int, float | None] = {}
         self.main_found: list[int] = []  # onsets (decimated) the main template found
         # the filter runs on overlapping blocks of M samples (overlap-save,
         # Oppenheim & Schafer, "Discrete-Time Signal Processing", 1989,
@@ -1964,7 +1968,9 @@ class _TemplateScan:
         if order.size == 0:
             return
         of = R * order  # output samples (decimated) of the peaks
-        rings = self._rings((base + of - self.b0).tolist(), si)
+        at = (base + of - self.b0).tolist()
+        rings = self._rings(at, si)
+        other = self._rings(at, 1 - si) if self.slots[1 - si][0] is not None else None
         w = _rows(seg, of, self.L).astype(np.float64)
         fit = env[order] / np.sqrt(np.maximum(np.einsum("ij,ij->i", w, w), 1e-30))
         self.click_fit.extend(np.minimum(fit, 1.0).tolist())
@@ -1979,6 +1985,8 @@ class _TemplateScan:
         den = al - 2 * be + ga
         frac = np.where(den < 0, 0.5 * (al - ga) / np.where(den < 0, den, -1.0), 0.0)
         onsets_in = np.round((base + R * (order + frac)) * self.q).astype(np.int64).tolist()
+        if other is not None:
+            self.other_ring.update(zip(onsets_in, other))
         strength = 20 * np.log10(env[order] / np.maximum(level_at(order), 1e-30))
         # the level: the largest sample within 5 ms of the onset
         peaks = self._peaks(base + of)
@@ -2892,6 +2900,7 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
             rejected_times = [t for t in rejected_times if t not in gone]
             rejected -= len(promoted)
     found_by: dict[int, int] = {}
+    slot_of: dict[int, int] = {}  # the template that found each matched-filter click
     if atypical and det._mf is not None and det._mf.clicks and len(kept) >= 8:
         # the matched-filter pass: clicks like the recording's own, not already found
         times = np.array([c.time_s for c in kept])
@@ -2926,12 +2935,21 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
             merged.append(c)
         # the template that found a click tells its kind, once the second
         # template has its place in the cycle (then it is the second family)
+        slot_of = {c.sample: slots[id(c)] for c in merged}
         if det._mf.phase is not None:
-            found_by = {c.sample: slots[id(c)] for c in merged}
+            found_by = slot_of
         if merged:  # (the detector's own objects: _assign_kinds labels copies)
             kept = sorted(kept + merged, key=lambda c: c.sample)
     hints = np.array([found_by.get(c.sample, -1) for c in kept], dtype=np.int64)
     labelled, cpc, seen = _assign_kinds(kept, clicks_per_cycle=clicks_per_cycle, hints=hints)
+    if slot_of:
+        # a click the kinds pass gave to the other family than the template
+        # that found it: its ring on that family's grid
+        other = det._mf.other_ring
+        for c in labelled:
+            si = slot_of.get(c.sample)
+            if si is not None and c.kind != si and c.sample in other:
+                c.ring_hz = other[c.sample]
     if cpc == 1 and atypical:
         labelled, echoes = _one_per_cycle(labelled)
         if echoes:
@@ -2980,8 +2998,9 @@ def finish_detection(detector: ClickDetector, clicks: list[Click], *,
     dropped, the clicks found by the matched-filter pass and not already
     present (none within 10 ms), up to the last click found so far, are
     added, and one or two clicks per cycle is decided (:func:`assign_kinds`);
-    in a one-click engine, the echoes of a click are set aside
-    (:func:`_one_per_cycle`).  Live capture calls this on the stream so far
+    a matched-filter click given to the other family than the template that
+    found it takes its ring on that family's grid; in a one-click engine,
+    the echoes of a click are set aside (:func:`_one_per_cycle`).  Live capture calls this on the stream so far
     (it does not change the detector).
 
     Parameters

@@ -665,21 +665,27 @@ def test_a_group_ringing_where_the_main_click_rings_is_not_the_second_family():
     assert p >= 0.98
 
 
-@pytest.mark.parametrize("seed", [2, 4])
+@pytest.mark.parametrize("seed", [2, 3, 4])
 def test_a_main_click_only_the_second_template_found_is_labelled_main(seed):
     # a two-click engine at 16 Hz in a reverberant room, 20 dB, every pop at
     # that level: main clicks the room kept from being accepted and that only
     # the second template found came out as second clicks, two "second"
-    # clicks in a row, the later one a whole period after its main click.
-    # Share of the true main clicks (mir_eval matching, +-5 ms) labelled
-    # main: 0.915 / 0.958 (seeds 2 / 4) before, 0.970 / 0.996 after.
+    # clicks in a row, the later one a whole period after its main click,
+    # with the second family's ring.  Share of the true main clicks (mir_eval
+    # matching, +-5 ms) labelled main: 0.915 / 0.927 / 0.958 (seeds 2 / 3 /
+    # 4) before, 0.970 / 0.958 / 0.996 after; with their ring within 2 % of
+    # the truth: 1.000 / 0.938 / 0.968 before, 1.000 / 0.967 / 0.996 after
+    # (the ring on the main family's grid).
     x, truth, fs = _render(click_to_noise_db=20.0, seed=seed, clicks_per_cycle=2,
                            reverb_rt60_s=0.5, steady_rate_hz=16.0, duration_s=40.0,
                            startup_level_db=0.0, fade_level_db=0.0, weak_pop_prob=0.0)
     res = detect_clicks(x, fs)
     ref = np.array([c["time_s"] for c in truth["clicks"]])
     est = np.array([c.time_s for c in res.clicks])
-    pairs = mir_eval.util.match_events(ref, est, 0.005)
-    mains = [res.clicks[j].kind == 0 for i, j in pairs if truth["clicks"][i]["kind"] == 0]
-    assert len(mains) >= 500
-    assert np.mean(mains) >= 0.95
+    pairs = [(truth["clicks"][i], res.clicks[j])
+             for i, j in mir_eval.util.match_events(ref, est, 0.005)
+             if truth["clicks"][i]["kind"] == 0]
+    assert len(pairs) >= 500
+    assert np.mean([c.kind == 0 for _t, c in pairs]) >= 0.95
+    assert np.mean([c.ring_hz is not None and abs(c.ring_hz / t["ring_hz"] - 1) <= 0.02
+                    for t, c in pairs]) >= 0.95
