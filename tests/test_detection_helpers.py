@@ -5,7 +5,7 @@ import pytest
 
 from popmeter.detection import (
     ClickDetector,
-    _aic_split,
+    _TemplateScan,
     _aic_split_rows,
     _cover,
     _local_periods,
@@ -225,6 +225,22 @@ def test_log_distance_equals_one_value_at_a_time():
     assert np.array_equal(_log_distance(values.tolist(), centres), expected)
 
 
+def _aic_split(aw: np.ndarray) -> np.ndarray:
+    """The direct cumulative-sum form of the AIC change point (Maeda 1985; the
+    two-segment form of Sleeman & van Eck, PEPI 1999) on whole rows: the length
+    of the first segment (2 .. n - 4) that minimises the criterion."""
+    n = aw.shape[1]
+    c1 = np.cumsum(aw, axis=1)
+    c2 = np.cumsum(aw * aw, axis=1)
+    kk = np.arange(1, n)[None, :]
+    s1, q1 = c1[:, :-1], c2[:, :-1]
+    s2, q2 = c1[:, -1:] - s1, c2[:, -1:] - q1
+    var1 = np.maximum(q1 / kk - (s1 / kk) ** 2, 1e-30)
+    var2 = np.maximum(q2 / (n - kk) - (s2 / (n - kk)) ** 2, 1e-30)
+    aic = kk * np.log(var1) + (n - kk - 1) * np.log(var2)
+    return 2 + np.argmin(aic[:, 1:n - 4], axis=1)
+
+
 def test_aic_split_rows_equals_aic_split():
     # reference: _aic_split, the direct cumulative-sum form of the AIC picker
     # (Maeda 1985; Sleeman & van Eck, PEPI 1999), row by row
@@ -240,6 +256,36 @@ def test_aic_split_rows_equals_aic_split():
             got = _aic_split_rows(aw)
             assert np.array_equal(got, np.concatenate([_aic_split(r[None, :]) for r in aw]))
             assert np.array_equal(got, _aic_split(aw))
+
+
+def test_aic_split_rows_equals_aic_split_on_float64_rows():
+    # the fold's averaged window is float64; reference as above
+    rng = np.random.default_rng(12)
+    for n in (20, 60):
+        for _ in range(40):
+            aw = rng.standard_normal((1, n)) * 10.0 ** rng.uniform(-5, 0)
+            aw[0, int(rng.integers(2, n - 2)):] *= rng.uniform(1.0, 50.0)
+            assert np.array_equal(_aic_split_rows(aw), _aic_split(aw))
+
+
+def test_ring_test_on_the_coarse_grid_equals_the_fine_one():
+    # reference: the peak of the 2^18-point spectrum (0.1 Hz at 24 kHz), the
+    # grid the templates' rings are read on
+    scan = _TemplateScan(48000.0, 2, 24000.0)
+    rng = np.random.default_rng(5)
+    t = np.arange(scan.L) / scan.fs_d
+    decided = []
+    for _ in range(300):
+        main_hz = rng.uniform(400.0, 6000.0)
+        scan.slots[0][1] = main_hz
+        f1 = main_hz * np.exp(rng.uniform(-0.12, 0.12))  # around the 8 % bar
+        h = np.exp(-t / rng.uniform(0.002, 0.012)) * np.sin(2 * np.pi * f1 * t)
+        h += rng.uniform(0.0, 0.8) * np.exp(-t / 0.004) * np.sin(2 * np.pi * 2.08 * f1 * t)
+        h += 0.05 * rng.standard_normal(t.size)
+        fine = abs(np.log(scan._peak_hz(h) / main_hz)) < 0.08
+        assert scan._rings_like_main(h) == fine
+        decided.append(fine)
+    assert 0 < sum(decided) < len(decided)  # both answers were asked
 
 
 def test_clipped_count_equals_numpy_count():
