@@ -842,7 +842,7 @@ def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray) -> _
     stall = r >= factor[:n]
     go = np.flatnonzero(~stall)
     rg = r[go]
-    k = np.where(rg >= 1.5, np.round(np.where(rg >= 1.5, rg, 1.0)), 1.0).astype(np.int64)
+    k = np.where(rg >= 1.5, np.round(rg), 1.0).astype(np.int64)
     at = np.repeat(go, k)  # the gap of each cycle
     kc = np.repeat(k, k)
     j = np.arange(at.size) - np.repeat(np.cumsum(k) - k, k)  # its place within the gap
