@@ -2656,16 +2656,20 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
     # after the main click before it, following that cycle's second click,
     # and followed by the next click at the phase or a whole period later (or
     # by none), is the next main click (one only the second template found)
-    mains = np.flatnonzero(lab == 0)
+    # (the main clicks now are some of ``mains``: the pass above only took
+    # clicks out, so each keeps its local period there)
+    now = np.flatnonzero(lab == 0)
     rank = np.cumsum(lab == 0) - 1
     for i in np.flatnonzero((lab[1:] == 1) & (lab[:-1] == 1)) + 1:
         if lab[i - 1] != 1:  # (relabelled a step before)
             continue
-        k = rank[i]  # the main click before
-        if k < 0 or k >= period.size or period[k] <= 0:
+        if rank[i] < 0:
             continue
-        t_p = period[k]
-        one = (times[i] - times[mains[k]]) / t_p
+        m = now[rank[i]]  # the main click before
+        t_p = period[np.searchsorted(mains, m)]
+        if t_p <= 0:
+            continue
+        one = (times[i] - times[m]) / t_p
         nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
         if abs(one - 1.0) <= 0.08 and (
                 nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08):

@@ -689,3 +689,23 @@ def test_a_main_click_only_the_second_template_found_is_labelled_main(seed):
     assert np.mean([c.kind == 0 for _t, c in pairs]) >= 0.95
     assert np.mean([c.ring_hz is not None and abs(c.ring_hz / t["ring_hz"] - 1) <= 0.02
                     for t, c in pairs]) >= 0.95
+
+
+def test_second_click_relabelled_main_uses_its_own_local_period():
+    # a two-click engine whose rate jumps from 10 to 16.7 Hz at cycle 60
+    # (second click at 0.45 of the period): the second clicks of every third
+    # cycle from 5 to 49 labelled main (relabelled second first), and the
+    # main click of cycle 70 labelled second.  That main click lies one local
+    # period (60 ms) after the one before; the period must be the one at that
+    # main click, not at the main click as many places further on as clicks
+    # were relabelled before it (100 ms, from before the jump)
+    from popmeter.detection import _second_at_its_place
+    periods = np.where(np.arange(120) < 60, 0.100, 0.060)
+    mains = 1.0 + np.concatenate([[0.0], np.cumsum(periods[:-1])])
+    times, labels = [], []
+    for k, (t, p) in enumerate(zip(mains, periods)):
+        times += [t, t + 0.45 * p]
+        labels += [1 if k == 70 else 0, 0 if 5 <= k < 50 and k % 3 == 2 else 1]
+    out = _second_at_its_place(np.array(times), np.array(labels))
+    assert out[2 * 70] == 0
+    assert all(out[1::2] == 1)
