@@ -2282,8 +2282,14 @@ def _median9(x: np.ndarray) -> np.ndarray:
                      axis=1)
 
 
-def _local_periods(gaps: np.ndarray, *, keep: float = 0.75) -> np.ndarray:
+def _local_periods(gaps: np.ndarray, *, keep: float = 0.75, shifted_ends: bool = False
+                   ) -> np.ndarray:
     """Per gap, the median of the 9 gaps around it leaving out those under ``keep`` x their upper quartile.
+
+    With ``shifted_ends``, the 4 gaps at either end take the value of the
+    first or last whole window of 9 (when there are 9 or more gaps) instead
+    of windows padded with the end gap: at the start of a run a first gap
+    that a click splits would otherwise fill half the window.
 
     The same values as ``np.nanmedian(np.where(w >= keep * uq, w, nan), axis=1)``
     with ``w`` the 9-wide windows of the edge-padded gaps and ``uq`` their
@@ -2297,6 +2303,9 @@ def _local_periods(gaps: np.ndarray, *, keep: float = 0.75) -> np.ndarray:
     g = np.asarray(gaps, dtype=np.float64)
     if g.size == 0:
         return np.zeros(0)
+    if shifted_ends and g.size >= 9:
+        inner = _local_periods(g, keep=keep)[4:-4]  # (the whole windows)
+        return np.concatenate([np.repeat(inner[:1], 4), inner, np.repeat(inner[-1:], 4)])
     padded = np.concatenate([np.repeat(g[:1], 4), g, np.repeat(g[-1:], 4)])  # (edge padding)
     s = np.sort(_windows(padded[None, :], 9)[0], axis=1)
     first = np.count_nonzero(s < keep * s[:, 6:7], axis=1)  # the kept ones are s[first:]
@@ -2315,23 +2324,44 @@ def _one_per_cycle(clicks: list[Click], *, share: float = 0.5, quieter_db: float
     more under the one before it, and within ``share`` of the local period
     after it, or between two clicks one local period apart, within 15 %) is
     the room's reflection of that click or its reverberation swelling again,
-    and is set aside.  The local period is the median of the 9 intervals
-    around, leaving out those under 0.75 of their upper quartile (which such
-    a click splits).  Fewer than 12 clicks are kept as they are (no period
-    to trust).  Returns (kept with their cycles renumbered, set aside).
+    and is set aside.  "The one before" is the last click kept: a room may
+    answer a click with several reflections, a later one louder than an
+    earlier one.  The local period is the median of the last 9 intervals
+    between the clicks kept, once there are 3; before that, the median of
+    the 9 intervals around (at the start, the first 9), leaving out those
+    under 0.75 of their upper quartile (which such a click splits).  Fewer
+    than 12 clicks are kept as they are (no period to trust).  Returns (kept
+    with their cycles renumbered, set aside).
     """
     n = len(clicks)
     if n < 12:
         return clicks, []
-    t = np.array([c.time_s for c in clicks])
-    lv = np.array([c.level_dbfs for c in clicks])
-    gaps = np.diff(t)
-    per = _local_periods(gaps)  # per gap (before each click from the second on)
-    # (or later in the cycle, where the clicks on either side are one period
-    # apart)
-    across = np.append((t[2:] - t[:-2]) / per[:-1], np.inf)
-    echo = np.concatenate([[False], ((gaps < share * per) | (np.abs(across - 1.0) <= 0.15))
-                           & (lv[1:] <= lv[:-1] - quieter_db)])
+    t = [c.time_s for c in clicks]
+    lv = [c.level_dbfs for c in clicks]
+    # (per gap: before each click from the second on)
+    per = _local_periods(np.diff(t), shifted_ends=True)
+    echo = np.zeros(n, dtype=bool)
+    ref = 0  # the last click kept
+    kept_gaps: list[float] = []  # between the clicks kept
+    for i in range(1, n):
+        # (once 3 intervals between kept clicks are known, their median of
+        # the last 9 is the period: where a room answers most clicks with
+        # two reflections, no interval between neighbours is a period)
+        if len(kept_gaps) >= 3:
+            w = sorted(kept_gaps[-9:])
+            m = len(w)
+            p = w[m // 2] if m % 2 else 0.5 * (w[m // 2 - 1] + w[m // 2])
+        else:
+            p = float(per[i - 1])
+        # within ``share`` of the period after it, or later in the cycle,
+        # where the clicks on either side of it are one period apart
+        near = (t[i] - t[ref] < share * p
+                or (i + 1 < n and abs((t[i + 1] - t[ref]) / p - 1.0) <= 0.15))
+        if near and lv[i] <= lv[ref] - quieter_db:
+            echo[i] = True
+        else:
+            kept_gaps.append(float(t[i] - t[ref]))
+            ref = i
     if not echo.any():
         return clicks, []
     kept = [c for c, e in zip(clicks, echo.tolist()) if not e]
