@@ -103,7 +103,7 @@ from __future__ import annotations
 
 import bisect
 import math
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -1474,7 +1474,14 @@ class _TemplateScan:
         cut from ``P`` before the average's onset (its sharpest energy rise
         where the phase lies within the bins that rose -- a room's reflection
         of the main click just before may rise more sharply -- refined by the
-        AIC change point).  The phase is the median delay of
+        AIC change point), weighted by the click's share of the power at each
+        frequency (:func:`_click_share_filtered`).  When it still rings where
+        the main click rings (within 8 %) while the power at the phase rose
+        most at a frequency more than 8 % from both, inside the band searched
+        -- in a reverberant room the main click's reverberation fills the
+        window; a second click differs in timbre, ringing most at another of
+        the plate's modes -- only the octave about that frequency is kept
+        (:func:`_octave_about`).  The phase is the median delay of
         the aligned examples over the local period.  The template is kept
         when:
 
@@ -1678,9 +1685,19 @@ class _TemplateScan:
                               phase=phase, kb=kb)
         if agree < 0.5 or like_main > 0.95 or not consistent or sharp < 5.0:
             return False
+        h = _click_share_filtered(h, fs, f, sp_on, sp_off)
+        # a template that still rings where the main click rings, while the
+        # power at the phase rose most elsewhere (at f2, more than 8 % from
+        # both, and not at the edge of the band searched): the main click's
+        # reverberation still fills it; only the octave about f2 is kept
+        f_lo, f_hi = float(f[band][0]), float(f[band][-1])
+        if (f_lo < f2 < f_hi and abs(math.log(f2 / self.slots[0][1])) >= 0.08
+                and self._rings_like_main(h) and abs(math.log(f2 / self._peak_hz(h))) >= 0.08):
+            h = _octave_about(h, fs, f2)
+            self.fold_info["narrowed_to_hz"] = f2
         self.phase = phase
         self.folded = True
-        self._install(self.slots[1], _click_share_filtered(h, fs, f, sp_on, sp_off))
+        self._install(self.slots[1], h)
         return True
 
     def _all_clicks(self, lo: int, hi: int, hi_found: int) -> np.ndarray:
@@ -2178,16 +2195,44 @@ def _click_share_filtered(h: np.ndarray, fs: float, f_hz: np.ndarray, on_pow: np
     (``fs``: the template's sample rate), the onset stays where it was;
     zero mean, unit norm.
     """
-    L = h.size
-    n = int(2 ** math.ceil(math.log2(4 * L)))
     band = (f_hz >= 500.0) & (f_hz <= 0.45 * fs)
     floor = float(np.median(off_pow[band])) if band.any() else 0.0
     excess = np.maximum(off_pow - floor, 0.0)
     share = np.clip(1.0 - excess / np.maximum(on_pow, 1e-30), 0.0, 1.0)
+    return _reweighted(h, fs, lambda fr: np.interp(fr, f_hz, share))
+
+
+def _octave_about(h: np.ndarray, fs: float, centre_hz: float) -> np.ndarray:
+    """A template band-limited to the octave about ``centre_hz`` (Hz).
+
+    Gain ``cos^2(pi log2(f / centre_hz))`` within half an octave either side
+    of the centre (1 there, falling to 0 at the band's edges), 0 outside;
+    applied with zero phase (``fs``: the template's sample rate, Hz); zero
+    mean, unit norm.  Half an octave keeps out the next mode of a clamped
+    plate on either side (a clamped circle's second mode rings 2.08 times as
+    high as its first: Leissa, NASA SP-160, 1969, Table 2.1; the values in
+    :mod:`popmeter.plate`).
+    """
+    def gain(fr: np.ndarray) -> np.ndarray:
+        octaves = np.log2(np.maximum(fr, 1e-3) / centre_hz)
+        return np.where(np.abs(octaves) < 0.5, np.cos(np.pi * octaves) ** 2, 0.0)
+
+    return _reweighted(h, fs, gain)
+
+
+def _reweighted(h: np.ndarray, fs: float, gain: Callable[[np.ndarray], np.ndarray]
+                ) -> np.ndarray:
+    """``h`` filtered with zero phase by the real ``gain`` (a function of frequency, Hz).
+
+    ``fs``: the sample rate of ``h`` (Hz).  The onset stays where it was;
+    zero mean, unit norm (``h`` itself when nothing is left).
+    """
+    L = h.size
+    n = int(2 ** math.ceil(math.log2(4 * L)))
     fr = np.arange(n // 2 + 1) * (fs / n)
     padded = np.zeros(n)
     padded[L:2 * L] = h  # (room either side for the weight's response)
-    out = sp_fft.irfft(sp_fft.rfft(padded) * np.interp(fr, f_hz, share), n)[L:2 * L]
+    out = sp_fft.irfft(sp_fft.rfft(padded) * gain(fr), n)[L:2 * L]
     out -= out.mean()
     norm = float(np.linalg.norm(out))
     return out / norm if norm > 0 else h

@@ -1,11 +1,12 @@
 """The detector's small array helpers against the plain numpy formulations they replace."""
 
+import math
+
 import numpy as np
 import pytest
 
 from popmeter.detection import (
     ClickDetector,
-    _TemplateScan,
     _aic_split_rows,
     _cover,
     _local_periods,
@@ -13,6 +14,7 @@ from popmeter.detection import (
     _percentile,
     _row_dots,
     _rows,
+    _TemplateScan,
     _windows,
     _with_neighbours,
 )
@@ -365,3 +367,48 @@ def test_click_share_weight_keeps_the_click_and_drops_the_echo():
     same = _click_share_filtered(click, fs, f, on, np.full_like(on, 1e-12))
     ref = (click - click.mean()) / np.linalg.norm(click - click.mean())
     assert np.corrcoef(same, ref)[0, 1] > 0.999
+
+
+def test_octave_about_keeps_one_plate_mode_and_drops_its_neighbours():
+    # a template holding a clamped circle's first two modes, 1200 Hz and 2.081
+    # x 1200 Hz (Leissa, NASA SP-160, Table 2.1), the first one 3 times as
+    # strong: the octave about the second keeps it, unchanged up to its norm
+    # (a zero-phase real gain of 1 at a sinusoid's frequency passes the
+    # sinusoid as it is), and drops the first, more than half an octave away
+    from popmeter.detection import _octave_about
+
+    fs = 24000.0
+    t = np.arange(288) / fs
+    f1, f2 = 1200.0, 2.081 * 1200.0
+    second = np.sin(2 * np.pi * f2 * t) * np.exp(-t / 0.004)
+    h = 3.0 * np.sin(2 * np.pi * f1 * t) * np.exp(-t / 0.008) + second
+    out = _octave_about(h, fs, f2)
+    ref = (second - second.mean()) / np.linalg.norm(second - second.mean())
+    # (0.978: the decay widens the line, and the abrupt start spreads over
+    # every frequency, so the gain is not exactly 1 over all of it)
+    assert np.corrcoef(out, ref)[0, 1] > 0.95
+    assert np.corrcoef(h, ref)[0, 1] < 0.5  # (before: the first mode dominates)
+    assert abs(np.linalg.norm(out) - 1.0) < 1e-9 and abs(out.mean()) < 1e-12
+    # the gain, read as amplitude ratios (the output is normalised): a tone at
+    # the centre and one about a quarter octave off come out 1 : cos^2(pi x
+    # their distance in octaves), about 1 : 0.5; one 0.55 octave off is gone
+    # (long Hann-windowed tones on exact DFT bins: no scalloping)
+    n = 8192
+    tt = np.arange(n) / fs
+    win = np.hanning(n)
+    fr = np.fft.rfftfreq(n, 1.0 / fs)
+
+    def on_bin(f):
+        return fr[np.argmin(np.abs(fr - f))]
+
+    def amp(x, f):
+        return np.abs(np.fft.rfft(x * win))[np.argmin(np.abs(fr - f))]
+
+    fc = on_bin(f2)
+    for off_oct in (0.25, -0.25, 0.55, -0.7):
+        f_off = on_bin(fc * 2 ** off_oct)
+        dist = math.log2(f_off / fc)
+        want = math.cos(math.pi * dist) ** 2 if abs(dist) < 0.5 else 0.0
+        tones = np.sin(2 * np.pi * fc * tt) + np.sin(2 * np.pi * f_off * tt)
+        got = _octave_about(tones, fs, fc)
+        assert amp(got, f_off) / amp(got, fc) == pytest.approx(want, abs=0.01)
