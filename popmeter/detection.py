@@ -2327,34 +2327,42 @@ def _median9(x: np.ndarray) -> np.ndarray:
                      axis=1)
 
 
-def _local_periods(gaps: np.ndarray, *, keep: float = 0.75, shifted_ends: bool = False
-                   ) -> np.ndarray:
-    """Per gap, the median of the 9 gaps around it leaving out those under ``keep`` x their upper quartile.
+def _local_periods(gaps: np.ndarray, *, keep: float = 0.75, shifted_ends: bool = False,
+                   width: int = 9) -> np.ndarray:
+    """Per gap, the median of the gaps around it that reach ``keep`` x their upper quartile.
 
-    With ``shifted_ends``, the 4 gaps at either end take the value of the
-    first or last whole window of 9 (when there are 9 or more gaps) instead
-    of windows padded with the end gap: at the start of a run a first gap
-    that a click splits would otherwise fill half the window.
+    The ``width`` gaps around it: 9 by default; 4 k + 1 for some k >= 1 (so
+    that numpy's quartile lands on one of the sorted values).  With
+    ``shifted_ends``, the
+    ``(width - 1) / 2`` gaps at either end take the value of the first or
+    last whole window (when there are ``width`` or more gaps) instead of
+    windows padded with the end gap: at the start of a run a first gap that
+    a click splits would otherwise fill half the window.
 
     The same values as ``np.nanmedian(np.where(w >= keep * uq, w, nan), axis=1)``
-    with ``w`` the 9-wide windows of the edge-padded gaps and ``uq`` their
+    with ``w`` the windows of the edge-padded gaps and ``uq`` their
     ``np.percentile(w, 75, axis=1)`` (numpy's linear method lands exactly on
-    the 7th of the 9 sorted values), from one sort of the windows: the gaps
-    kept are the top of each sorted row, and their median is its middle (the
-    mean of the two middle values for an even count, as numpy takes it).
-    ``keep`` in (0, 1] (gaps are not negative).  About 8 times faster than
-    the numpy formulation on a chunk's 25 gaps.
+    the value at index 3 (width - 1) / 4 of each sorted window: the 7th of
+    9), from one sort of the windows: the gaps kept are the top of each
+    sorted row, and their median is its middle (the mean of the two middle
+    values for an even count, as numpy takes it).  ``keep`` in (0, 1] (gaps
+    are not negative).  About 8 times faster than the numpy formulation on a
+    chunk's 25 gaps.
     """
+    if width < 5 or (width - 1) % 4:
+        raise ValueError(f"width={width}: must be 4 k + 1 with k >= 1")
+    h = (width - 1) // 2
     g = np.asarray(gaps, dtype=np.float64)
     if g.size == 0:
         return np.zeros(0)
-    if shifted_ends and g.size >= 9:
-        inner = _local_periods(g, keep=keep)[4:-4]  # (the whole windows)
-        return np.concatenate([np.repeat(inner[:1], 4), inner, np.repeat(inner[-1:], 4)])
-    padded = np.concatenate([np.repeat(g[:1], 4), g, np.repeat(g[-1:], 4)])  # (edge padding)
-    s = np.sort(_windows(padded[None, :], 9)[0], axis=1)
-    first = np.count_nonzero(s < keep * s[:, 6:7], axis=1)  # the kept ones are s[first:]
-    m = 9 - first
+    if shifted_ends and g.size >= width:
+        inner = _local_periods(g, keep=keep, width=width)[h:-h]  # (the whole windows)
+        return np.concatenate([np.repeat(inner[:1], h), inner, np.repeat(inner[-1:], h)])
+    padded = np.concatenate([np.repeat(g[:1], h), g, np.repeat(g[-1:], h)])  # (edge padding)
+    s = np.sort(_windows(padded[None, :], width)[0], axis=1)
+    q3 = 3 * (width - 1) // 4
+    first = np.count_nonzero(s < keep * s[:, q3:q3 + 1], axis=1)  # the kept ones are s[first:]
+    m = width - first
     r = np.arange(s.shape[0])
     a, b = s[r, first + (m - 1) // 2], s[r, first + m // 2]
     return np.where(a == b, a, (a + b) / 2.0)
@@ -2689,7 +2697,10 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
     template found, second).  The place of the second click is the median of (second
     click - main click before it) / (the local period: the median of the 9
     main-to-main intervals around, leaving out those under 0.7 of their
-    upper quartile), from 8 or more labelled pairs; a main click that
+    upper quartile -- or of the 25 around where that is under 0.7 of theirs:
+    where second clicks labelled main split most of the 9, their quartile is
+    a split interval, while the 25's is a whole period until three quarters
+    are split), from 8 or more labelled pairs; a main click that
     follows another main click at that fraction (+-0.08) of the period, and
     is followed by the next click at the rest of the period (+-0.08) or by
     none, is a second click; a second click one local period (+-0.08) after
@@ -2704,8 +2715,11 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
         return lab
     gaps = np.diff(times[mains])
     # the local period at each main click: the median of the 9 main-to-main
-    # intervals around it, leaving out those under 0.7 of their upper quartile
+    # intervals around it, leaving out those under 0.7 of their upper
+    # quartile; of the 25 around it where that is under 0.7 of theirs
     local = _local_periods(gaps, keep=0.7)
+    wide = _local_periods(gaps, keep=0.7, width=25)
+    local = np.where(local < 0.7 * wide, wide, local)
     period = np.append(local, local[-1])  # at mains[k]: the interval after it
     seconds = np.flatnonzero(lab == 1)
     j = np.searchsorted(mains, seconds) - 1  # the main click before each second click

@@ -124,10 +124,12 @@ def test_decimation_by_any_blocks_equals_one_block_and_scipy_lfilter(fs):
         assert np.array_equal(det._mf.buf, whole._mf.buf[det._mf.b0 - whole._mf.b0:])
 
 
-def test_local_periods_equals_numpy():
+@pytest.mark.parametrize("width", [9, 25])
+def test_local_periods_equals_numpy(width):
     # reference: numpy.percentile (linear method) and numpy.nanmedian over the
-    # 9-wide windows of the edge-padded gaps, the formulation it replaces
+    # ``width``-wide windows of the edge-padded gaps, the formulation it replaces
     rng = np.random.default_rng(10)
+    h = (width - 1) // 2
     for n in list(range(1, 14)) + [40, 120]:
         for _ in range(30):
             gaps = rng.integers(1, 4000, n).astype(np.float64)
@@ -136,14 +138,24 @@ def test_local_periods_equals_numpy():
                 gaps[rng.random(n) < 0.1] *= 2.0
             if rng.integers(3) == 0:
                 gaps = np.round(gaps, -2)  # ties
-            win9 = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, 4, mode="edge"), 9)
-            uq = np.percentile(win9, 75, axis=1)
+            win = np.lib.stride_tricks.sliding_window_view(np.pad(gaps, h, mode="edge"), width)
+            uq = np.percentile(win, 75, axis=1)
             for keep in (0.75, 0.7):
-                expected = np.nanmedian(np.where(win9 >= keep * uq[:, None], win9, np.nan),
+                expected = np.nanmedian(np.where(win >= keep * uq[:, None], win, np.nan),
                                         axis=1)
-                got = _local_periods(gaps, keep=keep)
+                got = _local_periods(gaps, keep=keep, width=width)
                 assert np.array_equal(got, expected)
+                # shifted ends: the first and last whole windows' values at the ends
+                shifted = _local_periods(gaps, keep=keep, width=width, shifted_ends=True)
+                if n >= width:
+                    inner = expected[h:-h]
+                    assert np.array_equal(shifted[h:-h], inner)
+                    assert np.all(shifted[:h] == inner[0]) and np.all(shifted[-h:] == inner[-1])
+                else:
+                    assert np.array_equal(shifted, expected)
     assert _local_periods(np.zeros(0)).size == 0
+    with pytest.raises(ValueError):
+        _local_periods(np.ones(5), width=8)
 
 
 def test_row_dots_equals_matmul():
