@@ -2333,11 +2333,10 @@ def _local_periods(gaps: np.ndarray, *, keep: float = 0.75, shifted_ends: bool =
 
     The ``width`` gaps around it: 9 by default; 4 k + 1 for some k >= 1 (so
     that numpy's quartile lands on one of the sorted values).  With
-    ``shifted_ends``, the
-    ``(width - 1) / 2`` gaps at either end take the value of the first or
-    last whole window (when there are ``width`` or more gaps) instead of
-    windows padded with the end gap: at the start of a run a first gap that
-    a click splits would otherwise fill half the window.
+    ``shifted_ends``, the ``(width - 1) / 2`` gaps at either end take the
+    value of the first or last whole window (when there are ``width`` or
+    more gaps) instead of windows padded with the end gap: at the start of a
+    run a first gap that a click splits would otherwise fill half the window.
 
     The same values as ``np.nanmedian(np.where(w >= keep * uq, w, nan), axis=1)``
     with ``w`` the windows of the edge-padded gaps and ``uq`` their
