@@ -66,9 +66,9 @@ The steps, and the published method each follows:
    the recording's own clicks: a knock rings far lower) and a second look
    that takes back rejected candidates ringing exactly like an accepted
    family (short, bright second clicks).  Once an engine is found to give
-   one click per cycle, a quieter click within half a period after another,
-   or between two clicks a period apart, is an echo and is set aside
-   (:func:`_one_per_cycle`).
+   one click per cycle, a quieter click within half a period after the last
+   click kept, or between two clicks a period apart, is an echo and is set
+   aside (:func:`_one_per_cycle`).
 
 9. **Matched-filter pass with the recording's own click** (North 1943;
    Turin, "An introduction to matched filters", IRE Trans. IT-6, 1960): once
@@ -85,7 +85,9 @@ The steps, and the published method each follows:
    A second click too weak for the frame detector is found by folding: the
    band energy of 64 or more cycles averaged by phase (synchronous
    averaging) shows where in the cycle it lies, and its template is averaged
-   from there.  The first up to 30 s are kept so that the clicks before the
+   from there (in a room, band-limited to the octave where what rose there
+   rose most, when the average still rings like the main click).  The first
+   up to 30 s are kept so that the clicks before the
    templates existed are found too.  See
    :class:`_TemplateScan`.  These clicks join in the whole-recording passes
    (:func:`finish_detection`), not in ``process``'s output.
