@@ -105,6 +105,7 @@ from __future__ import annotations
 
 import bisect
 import math
+import statistics
 from collections.abc import Callable, Iterable
 from dataclasses import dataclass, field
 
@@ -2401,12 +2402,7 @@ def _one_per_cycle(clicks: list[Click], *, share: float = 0.5, quieter_db: float
         # (once 3 intervals between kept clicks are known, their median of
         # the last 9 is the period: where a room answers most clicks with
         # two reflections, no interval between neighbours is a period)
-        if len(kept_gaps) >= 3:
-            w = sorted(kept_gaps[-9:])
-            m = len(w)
-            p = w[m // 2] if m % 2 else 0.5 * (w[m // 2 - 1] + w[m // 2])
-        else:
-            p = float(per[i - 1])
+        p = statistics.median(kept_gaps[-9:]) if len(kept_gaps) >= 3 else float(per[i - 1])
         # within ``share`` of the period after it, or later in the cycle,
         # where the clicks on either side of it are one period apart
         near = (t[i] - t[ref] < share * p
@@ -3092,8 +3088,9 @@ def finish_detection(detector: ClickDetector, clicks: list[Click], *,
     added, and one or two clicks per cycle is decided (:func:`assign_kinds`);
     a matched-filter click given to the other family than the template that
     found it takes its ring on that family's grid; in a one-click engine,
-    the echoes of a click are set aside (:func:`_one_per_cycle`).  Live capture calls this on the stream so far
-    (it does not change the detector).
+    the echoes of a click are set aside (:func:`_one_per_cycle`).  Live
+    capture calls this on the stream so far (it does not change the
+    detector).
 
     Parameters
     ----------

@@ -527,7 +527,8 @@ def test_one_click_engine_sets_aside_two_reflections_the_later_one_louder():
     levels = np.concatenate([np.full(40, -10.0), np.full(10, -20.0), np.full(10, -16.0)])
     order = np.argsort(times)
     kept, echoes = _one_per_cycle(_clicks_at(times[order], levels[order]))
-    assert sorted(c.time_s for c in echoes) == pytest.approx(sorted(np.concatenate([first, later])))
+    want = sorted(np.concatenate([first, later]))
+    assert sorted(c.time_s for c in echoes) == pytest.approx(want)
     assert [c.time_s for c in kept] == pytest.approx(list(mains))
 
 
