@@ -2697,7 +2697,9 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
     upper quartile -- or of the 25 around where that is under 0.7 of theirs:
     where second clicks labelled main split most of the 9, their quartile is
     a split interval, while the 25's is a whole period until three quarters
-    are split), from 8 or more labelled pairs; a main click that
+    are split; and where even that is under 0.7 of the period the click
+    times show whatever their labels, :func:`_label_free_periods`, that one),
+    from 8 or more labelled pairs; a main click that
     follows another main click at that fraction (+-0.08) of the period, and
     is followed by the next click at the rest of the period (+-0.08) or by
     none, is a second click; a second click one local period (+-0.08) after
@@ -2717,6 +2719,14 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
     local = _local_periods(gaps, keep=0.7)
     wide = _local_periods(gaps, keep=0.7, width=25)
     local = np.where(local < 0.7 * wide, wide, local)
+    # where even the 25 are split (a long stretch of second clicks labelled
+    # main), the period the click times show whatever their labels (looked
+    # for only where the period reads under 0.8 of the recording's median,
+    # as such a stretch makes it read about half)
+    odd = np.flatnonzero(local < 0.8 * np.median(local))
+    if odd.size:
+        free = _label_free_periods(times, mains[odd])
+        local[odd] = np.where(local[odd] < 0.7 * free, free, local[odd])
     period = np.append(local, local[-1])  # at mains[k]: the interval after it
     seconds = np.flatnonzero(lab == 1)
     j = np.searchsorted(mains, seconds) - 1  # the main click before each second click
@@ -2761,6 +2771,41 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
                 nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08):
             lab[i] = 0
     return lab
+
+
+def _label_free_periods(times: np.ndarray, centres: np.ndarray, *, half: int = 12,
+                        max_lag: int = 4, tol: float = 0.04, share: float = 0.75
+                        ) -> np.ndarray:
+    """The period (s) around each click ``centres[k]`` from the click times alone.
+
+    Every interval between two of the ``2 half + 1`` clicks around (up to
+    ``max_lag`` clicks apart) is a candidate; each scores the intervals within
+    ``tol`` (relative) of it.  An engine's clicks recur once a period, so the
+    period scores about as many intervals as there are clicks (main to main
+    and second to second, a missed click or not), a multiple of it about as
+    many, and the delay of the second click only half as many: the period is
+    the shortest candidate scoring ``share`` of the best or more, refined as
+    the median of the intervals within ``tol`` of it.  (The comb of
+    inter-onset intervals, common practice in tempo estimation, e.g. Dixon,
+    "Automatic extraction of tempo and beat from expressive performances",
+    J. New Music Research 30, 2001; no source for the constants.)  NaN where
+    fewer than 4 intervals are found.
+    """
+    t = np.asarray(times, dtype=np.float64)
+    out = np.full(len(centres), np.nan)
+    for k, c in enumerate(np.asarray(centres).tolist()):
+        w = t[max(0, c - half):c + half + 1]
+        d = np.concatenate([w[lag:] - w[:-lag] for lag in range(1, max_lag + 1)
+                            if lag < w.size])
+        d = d[d > 0]
+        if d.size < 4:
+            continue
+        close = np.abs(d[None, :] - d[:, None]) <= tol * d[:, None]
+        score = close.sum(axis=1)
+        ok = score >= share * score.max()
+        best = int(np.flatnonzero(ok)[np.argmin(d[ok])])
+        out[k] = float(np.median(d[close[best]]))
+    return out
 
 
 def _kind_features(clicks: list[Click]) -> np.ndarray:
