@@ -2629,7 +2629,8 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
     labels = _by_ring(out, np.asarray(labels, dtype=np.int64))
     if hints is not None:
         labels = np.where(hints >= 0, hints, labels)
-    labels = _second_at_its_place(times, labels)
+    labels = _second_at_its_place(times, labels,
+                                  levels=np.array([c.level_dbfs for c in out], dtype=float))
     cycle = -1
     for c, lab in zip(out, labels.tolist()):
         c.kind = lab
@@ -2686,7 +2687,8 @@ def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
     return lab
 
 
-def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
+def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
+                         levels: np.ndarray | None = None) -> np.ndarray:
     """Relabel as second clicks the "main" clicks that sit where second clicks belong, and back.
 
     A second click found only by a template like the main click's may be
@@ -2720,13 +2722,16 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
     wide = _local_periods(gaps, keep=0.7, width=25)
     local = np.where(local < 0.7 * wide, wide, local)
     # where even the 25 are split (a long stretch of second clicks labelled
-    # main), the period the click times show whatever their labels (looked
-    # for only where the period reads under 0.8 of the recording's median,
-    # as such a stretch makes it read about half)
-    odd = np.flatnonzero(local < 0.8 * np.median(local))
+    # main), or a stretch of main clicks labelled second doubles the
+    # intervals, the period the click times show whatever their labels
+    # (looked for only where the period reads under 0.8 or over 1.25 of the
+    # recording's median, as such a stretch makes it read about half or double)
+    med = np.median(local)
+    odd = np.flatnonzero((local < 0.8 * med) | (local > 1.25 * med))
     if odd.size:
         free = _label_free_periods(times, mains[odd])
-        local[odd] = np.where(local[odd] < 0.7 * free, free, local[odd])
+        local[odd] = np.where((local[odd] < 0.7 * free) | (local[odd] > 1.5 * free), free,
+                              local[odd])
     period = np.append(local, local[-1])  # at mains[k]: the interval after it
     seconds = np.flatnonzero(lab == 1)
     j = np.searchsorted(mains, seconds) - 1  # the main click before each second click
@@ -2766,6 +2771,28 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray) -> np.ndarray:
         if t_p <= 0:
             continue
         one = (times[i] - times[m]) / t_p
+        nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
+        if abs(one - 1.0) <= 0.08 and (
+                nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08):
+            lab[i] = 0
+    # and where that cycle's second click was missed: a "second" click one
+    # local period (+-0.08) after the main click just before it, followed as
+    # above, and no more than 3 dB quieter than it (``levels``, dBFS), is the
+    # next main click too (a second click lies a phase, or a period and a
+    # phase, after a main click; but where the phase is near one half and
+    # the rate jitters, as at the start of a run, a second click may lie one
+    # local period -- read from the click times, half the true one -- after
+    # its main click: there it is the quieter of the two).  In order, so that
+    # a run of such clicks is taken one after the other.
+    for i in np.flatnonzero(lab[1:] == 1) + 1:
+        if lab[i - 1] != 0:
+            continue
+        if levels is not None and levels[i] < levels[i - 1] - 3.0:
+            continue
+        t_p = period[min(int(np.searchsorted(mains, i - 1)), period.size - 1)]
+        if t_p <= 0:
+            continue
+        one = (times[i] - times[i - 1]) / t_p
         nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
         if abs(one - 1.0) <= 0.08 and (
                 nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08):
