@@ -2777,17 +2777,22 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
             lab[i] = 0
     # and where that cycle's second click was missed: a "second" click one
     # local period (+-0.08) after the main click just before it, followed as
-    # above, and no more than 3 dB quieter than it (``levels``, dBFS), is the
-    # next main click too (a second click lies a phase, or a period and a
-    # phase, after a main click; but where the phase is near one half and
-    # the rate jitters, as at the start of a run, a second click may lie one
-    # local period -- read from the click times, half the true one -- after
-    # its main click: there it is the quieter of the two).  In order, so that
-    # a run of such clicks is taken one after the other.
+    # above, and as loud as a main click (``levels``, dBFS: no more than 3 dB
+    # under the main click before it, and nearer the main clicks' median
+    # level than the second clicks'), is the next main click too (a second
+    # click lies a phase, or a period and a phase, after a main click; but
+    # where the phase is near one half and the rate jitters, as at the start
+    # of a run, a second click may lie one local period -- read from the
+    # click times, half the true one -- after its main click: there it is
+    # the quieter of the two).  In order, so that a run of such clicks is
+    # taken one after the other.
+    mid = -math.inf
+    if levels is not None and (lab == 0).any() and (lab == 1).any():
+        mid = 0.5 * (float(np.median(levels[lab == 0])) + float(np.median(levels[lab == 1])))
     for i in np.flatnonzero(lab[1:] == 1) + 1:
         if lab[i - 1] != 0:
             continue
-        if levels is not None and levels[i] < levels[i - 1] - 3.0:
+        if levels is not None and (levels[i] < levels[i - 1] - 3.0 or levels[i] < mid):
             continue
         t_p = period[min(int(np.searchsorted(mains, i - 1)), period.size - 1)]
         if t_p <= 0:
