@@ -604,14 +604,14 @@ def build_timeline(
     # steady state on the final cycles.
     local = _local_period(t, smoothing_cycles)
     factor = np.full(max(t.size - 1, 0), float(stall_factor))
-    cyc = _cycles_from_gaps(t, local, factor)
+    cyc = _cycles_from_gaps(t, local, factor, second)
     found = _steady_state(cyc, tol=tol, edge=edge, min_cycles=steady_min_cycles, w=smoothing_cycles)
     if t.size >= 2:
         boundary = found.start_s if found.core is not None else found.peak_s
         relaxed = np.where(t[:-1] < boundary, float(startup_stall_factor), float(stall_factor))
         if not np.array_equal(relaxed, factor):
             first = cyc
-            cyc = _cycles_from_gaps(t, local, relaxed)
+            cyc = _cycles_from_gaps(t, local, relaxed, second)
             # (the steady state depends on the cycles' starts and periods only:
             # when the relaxed limit bridged no gap, pass 1 found it already)
             if not (
@@ -828,10 +828,14 @@ class _Cycles:
     stall_gaps: list[tuple[int, int]]  # (i, i + 1) main-click indices around each stall
 
 
-def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray) -> _Cycles:
+def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray,
+                      second: np.ndarray | None = None) -> _Cycles:
     """Cycles from main-click times: a gap of ``r`` local periods is one cycle
     (r < 1.5), ``round(r)`` cycles with filled-in clicks (1.5 <= r < factor)
-    or a stall (r >= factor)."""
+    or a stall (r >= factor).  With ``second`` (the second clicks' times, sorted),
+    a gap is a stall only if the longest silence in it, second clicks
+    counted, is ``factor`` local periods too: where second clicks are heard
+    all along, the engine kept running and only its main clicks were missed."""
     # (on whole arrays, the arithmetic of the plain loop: per gap i, r = gap / local[i];
     # a stall if r >= factor[i], else k = round(r) (half to even) cycles when r >= 1.5,
     # else 1, cycle j starting at t[i] + j * gap / k, lasting gap / k)
@@ -840,6 +844,12 @@ def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray) -> _
     gap = t[1:] - t[:-1]
     r = gap / local[:n]
     stall = r >= factor[:n]
+    if second is not None and second.size and stall.any():
+        for i in np.flatnonzero(stall).tolist():
+            inside = second[(second > t[i]) & (second < t[i + 1])]
+            if inside.size:
+                silence = float(np.max(np.diff(np.concatenate([[t[i]], inside, [t[i + 1]]]))))
+                stall[i] = silence >= factor[i] * local[i]
     go = np.flatnonzero(~stall)
     rg = r[go]
     k = np.where(rg >= 1.5, np.round(rg), 1.0).astype(np.int64)

@@ -481,6 +481,31 @@ def test_two_click_engine_stall_starts_at_the_last_second_click():
     assert tl.stalls[0].end_s == stall_after
 
 
+def test_two_click_engine_main_clicks_missed_while_second_clicks_go_on_is_no_stall():
+    # 5 main clicks in a row missed (a 6-period gap between main clicks) but
+    # every second click heard: the engine kept running, as when a room's
+    # echo hid the main clicks; the old rule reported a stall of 5 periods.
+    # A silence of 8 periods with nothing heard is still a stall.
+    run = make_run(seed=14)
+    main = np.array(run["times"])
+    second = main[:-1] + 0.45 / RATE_HZ
+    i_miss = int(np.searchsorted(main, 20.0))
+    i_stall = int(np.searchsorted(main, 30.0))
+    keep_main = np.ones(main.size, bool)
+    keep_main[i_miss:i_miss + 5] = False
+    keep_main[i_stall:i_stall + 8] = False
+    keep_second = np.ones(second.size, bool)
+    keep_second[i_stall - 1:i_stall + 8] = False
+    clicks = ([click(t, 0) for t in main[keep_main]]
+              + [click(t, 1) for t in second[keep_second]])
+    tl = build_timeline(clicks, duration_s=run["duration_s"], clicks_per_cycle=2)
+    assert tl.summary["stalls"] == 1
+    assert tl.stalls[0].end_s == main[i_stall + 8]
+    # the 5 missed main clicks are filled-in cycles, not a gap in the rate
+    filled = [c for c in tl.cycles if main[i_miss - 1] < c.start_s < main[i_miss + 5]]
+    assert len(filled) == 5 and all(c.missed_clicks == 1 for c in filled)
+
+
 def test_no_clicks_at_all():
     tl = timeline_of([], 10.0)
     assert tl.cycles == [] and tl.stalls == []
