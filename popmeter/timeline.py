@@ -21,7 +21,9 @@ timeline is measured"):
    (``Cycle.missed_clicks == 1``) and none of them shows a halved rate. An
    interval of at least ``stall_factor`` local periods (``startup_stall_factor``
    during start-up, where an engine sputters) is a stall: the engine stopped
-   popping; it makes no cycle.
+   popping; it makes no cycle.  With a two-click engine the second clicks
+   are pops too: a gap whose longest silence, second clicks counted, is
+   shorter than the limit is missed main clicks, not a stall.
 4. **Smoothed rate.** A rolling median (``smoothing_cycles`` cycles, centred)
    of the cycle rates.
 5. **Steady state.** The core is the longest stretch of consecutive cycles
@@ -486,7 +488,9 @@ def build_timeline(
         or two missed clicks. Default 3.5: a detector at 15 dB click-to-noise
         that misses one click in twenty misses two in a row about once in 400
         cycles, three in a row almost never; a silence of 3.5 periods or more
-        is the engine stopping (common practice, no source).
+        is the engine stopping (common practice, no source).  With two
+        clicks per cycle the silence counts the second clicks: a gap they
+        fill is missed main clicks.
     startup_stall_factor : float
         The same limit during start-up, where an engine sputters: gaps of
         about 2, 3 or 4 periods are missed pops, not stalls. Default 4.5
