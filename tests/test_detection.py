@@ -750,6 +750,15 @@ def test_a_run_of_second_clicks_labelled_main_is_relabelled():
     assert all(out[1::2] == 1)
 
 
+def _jittered_mains(seed: int, n: int, period_s: float, jitter: float
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """Main-click times from 1 s and each cycle's period: ``period_s`` with
+    Gaussian jitter of relative size ``jitter`` (fixed seed)."""
+    rng = np.random.default_rng(seed)
+    period = period_s * (1.0 + jitter * rng.standard_normal(n))
+    return 1.0 + np.concatenate([[0.0], np.cumsum(period[:-1])]), period
+
+
 def test_a_long_run_of_second_clicks_labelled_main_is_relabelled_by_the_click_times():
     # as above, but the second clicks of 22 cycles in a row (30-51) labelled
     # main, as in a reverberant room where they rang like the main click for
@@ -759,9 +768,7 @@ def test_a_long_run_of_second_clicks_labelled_main_is_relabelled_by_the_click_ti
     # recurs one period later, the second click's delay only every other
     # interval.  A little jitter (0.8 %, fixed seed) keeps it honest.
     from popmeter.detection import _label_free_periods, _second_at_its_place
-    rng = np.random.default_rng(3)
-    period = 0.0625 * (1.0 + 0.008 * rng.standard_normal(100))
-    mains = 1.0 + np.concatenate([[0.0], np.cumsum(period[:-1])])
+    mains, period = _jittered_mains(3, 100, 0.0625, 0.008)
     times, labels = [], []
     for k, (t, p) in enumerate(zip(mains, period)):
         times += [t, t + 0.45 * p]
@@ -783,9 +790,7 @@ def test_main_clicks_labelled_second_where_their_second_clicks_were_missed():
     # 10 labelled second (steady running then started 6 s late).  Each lies
     # one period after the main click before it and is as loud: a main click
     from popmeter.detection import _second_at_its_place
-    rng = np.random.default_rng(5)
-    period = 0.0625 * (1.0 + 0.008 * rng.standard_normal(100))
-    mains = 1.0 + np.concatenate([[0.0], np.cumsum(period[:-1])])
+    mains, period = _jittered_mains(5, 100, 0.0625, 0.008)
     times, labels, levels, truth = [], [], [], []
     for k, (t, p) in enumerate(zip(mains, period)):
         times.append(t)
@@ -812,9 +817,7 @@ def test_a_quieter_second_click_half_a_period_late_stays_second(second_db):
     # it stays a second click (with only a 3 dB test, the 2.5 dB case gave
     # 17 wrong labels)
     from popmeter.detection import _second_at_its_place
-    rng = np.random.default_rng(8)
-    period = 0.090 * (1.0 + 0.08 * rng.standard_normal(40))
-    mains = 1.0 + np.concatenate([[0.0], np.cumsum(period[:-1])])
+    mains, period = _jittered_mains(8, 40, 0.090, 0.08)
     times, labels, levels = [], [], []
     for t, p in zip(mains, period):
         times += [t, t + 0.5 * p]
