@@ -2693,21 +2693,35 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
 
     A second click found only by a template like the main click's may be
     labelled main (and, in a reverberant room, a main click only the second
-    template found, second).  The place of the second click is the median of (second
-    click - main click before it) / (the local period: the median of the 9
-    main-to-main intervals around, leaving out those under 0.7 of their
-    upper quartile -- or of the 25 around where that is under 0.7 of theirs:
-    where second clicks labelled main split most of the 9, their quartile is
-    a split interval, while the 25's is a whole period until three quarters
-    are split; and where even that is under 0.7 of the period the click
-    times show whatever their labels, :func:`_label_free_periods`, that one),
-    from 8 or more labelled pairs; a main click that
-    follows another main click at that fraction (+-0.08) of the period, and
-    is followed by the next click at the rest of the period (+-0.08) or by
-    none, is a second click; a second click one local period (+-0.08) after
-    the main click before it, following that cycle's second click, and
-    followed by the next click at the phase or a period later (+-0.08) or by
-    none, is a main click.
+    template found, second).
+
+    **Local period** at each main click: the median of the 9 main-to-main
+    intervals around, leaving out those under 0.7 of their upper quartile;
+    of the 25 around where that is under 0.7 of theirs (where second clicks
+    labelled main split most of the 9, their quartile is a split interval,
+    while the 25's is a whole period until three quarters are split); and
+    where it still reads under 0.7 or over 1.5 of the period the click times
+    show whatever their labels (:func:`_label_free_periods`: a long run of
+    second clicks labelled main halves it, a run of main clicks labelled
+    second, their own second clicks missed, doubles it), that one.
+
+    **Place** of the second click: the median of (second click - main click
+    before it) / local period, from 8 or more labelled pairs.
+
+    **Relabelling**, in three passes:
+
+    1. a main click that follows another main click at that fraction
+       (+-0.08) of the period, and is followed by the next click at the
+       rest of the period (+-0.08) or by none, is a second click;
+    2. a second click one local period (+-0.08) after the main click before
+       it, following that cycle's second click, and followed by the next
+       click at the phase or a period later (+-0.08) or by none, is a main
+       click;
+    3. so is a second click one local period after the main click just
+       before it (that cycle's second click missed), followed as in 2, when
+       it is as loud as a main click (``levels``, dBFS: no more than 3 dB
+       under the main click before it and nearer the main clicks' median
+       level than the second clicks'; without ``levels`` no level test).
     """
     lab = labels.copy()
     n = times.size

@@ -632,10 +632,10 @@ def build_timeline(
 
     stalls: list[Stall] = []
     for a, b in cyc.stall_gaps:
-        t_a, t_b = float(t[a]), float(t[b])
-        within = second[(second > t_a) & (second < t_b)] if second.size else second
-        s0 = float(within[-1]) if within.size else t_a
-        stalls.append(Stall(start_s=s0, end_s=t_b, duration_s=t_b - s0))
+        # the longest silence between the main clicks around the gap, the
+        # second clicks inside it counted
+        s0, s1 = _longest_silence(float(t[a]), float(t[b]), second)
+        stalls.append(Stall(start_s=s0, end_s=s1, duration_s=s1 - s0))
     n_missed = int(missed.sum())
     if n_missed:
         warnings.append(
@@ -850,10 +850,8 @@ def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray,
     stall = r >= factor[:n]
     if second is not None and second.size and stall.any():
         for i in np.flatnonzero(stall).tolist():
-            inside = second[(second > t[i]) & (second < t[i + 1])]
-            if inside.size:
-                silence = float(np.max(np.diff(np.concatenate([[t[i]], inside, [t[i + 1]]]))))
-                stall[i] = silence >= factor[i] * local[i]
+            s0, s1 = _longest_silence(float(t[i]), float(t[i + 1]), second)
+            stall[i] = s1 - s0 >= factor[i] * local[i]
     go = np.flatnonzero(~stall)
     rg = r[go]
     k = np.where(rg >= 1.5, np.round(rg), 1.0).astype(np.int64)
@@ -865,6 +863,17 @@ def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray,
     return _Cycles(
         starts, g / kc, (j > 0).astype(int), [(i, i + 1) for i in np.flatnonzero(stall).tolist()]
     )
+
+
+def _longest_silence(t_a: float, t_b: float, second: np.ndarray) -> tuple[float, float]:
+    """Start and end (s) of the longest silence between ``t_a`` and ``t_b`` (two
+    main clicks) with the second clicks (sorted) between them counted."""
+    inside = second[np.searchsorted(second, t_a, side="right"):np.searchsorted(second, t_b)]
+    if inside.size == 0:
+        return t_a, t_b
+    edges = np.concatenate([[t_a], inside, [t_b]])
+    j = int(np.argmax(np.diff(edges)))
+    return float(edges[j]), float(edges[j + 1])
 
 
 @dataclass

@@ -506,6 +506,26 @@ def test_two_click_engine_main_clicks_missed_while_second_clicks_go_on_is_no_sta
     assert len(filled) == 5 and all(c.missed_clicks == 1 for c in filled)
 
 
+def test_two_click_engine_stall_ends_at_the_first_pop_after_it():
+    # a stall of 8 periods after which the engine's first pop heard is a
+    # second click (its main click missed): the stall ends there, not at the
+    # next main click (the old code), and starts at the main click before
+    run = make_run(seed=14)
+    main = list(run["times"])
+    idx = int(np.searchsorted(main, 30.0))
+    stall_before = main[idx - 1]
+    first_pop = main[idx + 8] + 0.45 / RATE_HZ  # second click of the restart cycle
+    del main[idx:idx + 9]  # (the restart cycle's main click missed too)
+    main = np.array(main)
+    second = np.array([t + 0.45 / RATE_HZ for t in main[:-1] if abs(t - stall_before) > 1e-9]
+                      + [first_pop])
+    clicks = [click(t, 0) for t in main] + [click(t, 1) for t in np.sort(second)]
+    tl = build_timeline(clicks, duration_s=run["duration_s"], clicks_per_cycle=2)
+    assert tl.summary["stalls"] == 1
+    assert tl.stalls[0].start_s == stall_before
+    assert tl.stalls[0].end_s == pytest.approx(first_pop)
+
+
 def test_no_clicks_at_all():
     tl = timeline_of([], 10.0)
     assert tl.cycles == [] and tl.stalls == []
