@@ -86,7 +86,10 @@ The steps, and the published method each follows:
    band energy of 64 or more cycles averaged by phase (synchronous
    averaging) shows where in the cycle it lies, and its template is averaged
    from there (in a room, band-limited to the octave where what rose there
-   rose most, when the average still rings like the main click).  The first
+   rose most, when the average still rings like the main click; refused,
+   and no fold tried again, when it rings under 0.8 of the main click's
+   ring: no mode of the diaphragm lies below the one the main click rings
+   at, so it is the room answering each click).  The first
    up to 30 s are kept so that the clicks before the
    templates existed are found too.  See
    :class:`_TemplateScan`.  These clicks join in the whole-recording passes
@@ -1169,9 +1172,10 @@ class _TemplateScan:
     is 0.05 or less).  When no such group forms (second clicks too weak for
     the frame detector), the cycles are folded at fixed places in the
     stream (once the main template has scanned to 10 s, then every 5 s, at
-    most 12 times, and no more once 200 cycles show no rise at all) and the
-    template is made at the phase where their energy rises
-    (:meth:`_fold_second`).
+    most 12 times, and no more once 200 cycles show no rise at all or a
+    fold's template rings under 0.8 of the main click's ring: the room, not
+    the diaphragm) and the template is made at the phase where their energy
+    rises (:meth:`_fold_second`).
 
     **Scan.**  The decimated stream is correlated with each template (the
     matched filter, North 1943; Turin, "An introduction to matched filters",
@@ -1689,6 +1693,17 @@ class _TemplateScan:
         if agree < 0.5 or like_main > 0.95 or not consistent or sharp < 5.0:
             return False
         h = _click_share_filtered(h, fs, f, sp_on, sp_off)
+        # nothing of the diaphragm rings below its lowest mode, and the main
+        # click rings there or above: a template ringing under 0.8 of the
+        # main click's ring is the room or the tank answering each click,
+        # not a second click.  Later folds of the same room find the same,
+        # so none is tried again.  (A clamped circle's modes lie at 1, 2.08,
+        # 3.41 ... times its lowest: Leissa, NASA SP-160, Table 2.1.)
+        low_hz = self._peak_hz(h)
+        if low_hz < 0.8 * self.slots[0][1]:
+            self.fold_info["refused_below_main_hz"] = low_hz
+            self._folds = self.fold_tries
+            return False
         # a template that still rings where the main click rings, while the
         # power at the phase rose most elsewhere (at f2, more than 8 % from
         # both, and not at the edge of the band searched): the main click's
