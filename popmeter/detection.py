@@ -2818,18 +2818,19 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
     mid = -math.inf
     if levels is not None and (lab == 0).any() and (lab == 1).any():
         mid = 0.5 * (float(np.median(levels[lab == 0])) + float(np.median(levels[lab == 1])))
-    for i in np.flatnonzero(lab[1:] == 1) + 1:
+    # (the clicks one local period after the click before them, whatever
+    # its label, found at once; only those are walked through in order)
+    cand = np.flatnonzero(lab[1:] == 1) + 1
+    t_pc = period[np.minimum(np.searchsorted(mains, cand - 1), period.size - 1)]
+    one_c = (times[cand] - times[cand - 1]) / np.where(t_pc > 0, t_pc, np.inf)
+    for i, t_p in zip(cand[np.abs(one_c - 1.0) <= 0.08].tolist(),
+                      t_pc[np.abs(one_c - 1.0) <= 0.08].tolist()):
         if lab[i - 1] != 0:
             continue
         if levels is not None and (levels[i] < levels[i - 1] - 3.0 or levels[i] < mid):
             continue
-        t_p = period[min(int(np.searchsorted(mains, i - 1)), period.size - 1)]
-        if t_p <= 0:
-            continue
-        one = (times[i] - times[i - 1]) / t_p
         nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
-        if abs(one - 1.0) <= 0.08 and (
-                nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08):
+        if nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08:
             lab[i] = 0
     return lab
 
