@@ -1693,17 +1693,6 @@ class _TemplateScan:
         if agree < 0.5 or like_main > 0.95 or not consistent or sharp < 5.0:
             return False
         h = _click_share_filtered(h, fs, f, sp_on, sp_off)
-        # nothing of the diaphragm rings below its lowest mode, and the main
-        # click rings there or above: a template ringing under 0.8 of the
-        # main click's ring is the room or the tank answering each click,
-        # not a second click.  Later folds of the same room find the same,
-        # so none is tried again.  (A clamped circle's modes lie at 1, 2.08,
-        # 3.41 ... times its lowest: Leissa, NASA SP-160, Table 2.1.)
-        low_hz = self._peak_hz(h)
-        if low_hz < 0.8 * self.slots[0][1]:
-            self.fold_info["refused_below_main_hz"] = low_hz
-            self._folds = self.fold_tries
-            return False
         # a template that still rings where the main click rings, while the
         # power at the phase rose most elsewhere (at f2, more than 8 % from
         # both, and not at the edge of the band searched): the main click's
@@ -1713,6 +1702,18 @@ class _TemplateScan:
                 and self._rings_like_main(h) and abs(math.log(f2 / self._peak_hz(h))) >= 0.08):
             h = _octave_about(h, fs, f2)
             self.fold_info["narrowed_to_hz"] = f2
+        # nothing of the diaphragm rings below its lowest mode, and the main
+        # click rings there or above: a template ringing under 0.8 of the
+        # main click's ring (as made, or narrowed to the octave where the
+        # power rose) is the room or the tank answering each click, not a
+        # second click.  Later folds of the same room find the same, so none
+        # is tried again.  (A clamped circle's modes lie at 1, 2.08, 3.41 ...
+        # times its lowest: Leissa, NASA SP-160, Table 2.1.)
+        low_hz = self._peak_hz(h)
+        if low_hz < 0.8 * self.slots[0][1]:
+            self.fold_info["refused_below_main_hz"] = low_hz
+            self._folds = self.fold_tries
+            return False
         self.phase = phase
         self.folded = True
         self._install(self.slots[1], h)
