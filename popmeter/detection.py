@@ -2717,9 +2717,10 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
     labelled main split most of the 9, their quartile is a split interval,
     while the 25's is a whole period until three quarters are split); and
     where it still reads under 0.7 or over 1.5 of the period the click times
-    show whatever their labels (:func:`_label_free_periods`: a long run of
-    second clicks labelled main halves it, a run of main clicks labelled
-    second, their own second clicks missed, doubles it), that one.
+    show whatever their labels (:func:`_label_free_periods`, looked for only
+    where it reads under 0.8 or over 1.25 of the recording's median: a long
+    run of second clicks labelled main halves it, a run of main clicks
+    labelled second, their own second clicks missed, doubles it), that one.
 
     **Place** of the second click: the median of (second click - main click
     before it) / local period, from 8 or more labelled pairs.
@@ -2824,8 +2825,8 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
     cand = np.flatnonzero(lab[1:] == 1) + 1
     t_pc = period[np.minimum(np.searchsorted(mains, cand - 1), period.size - 1)]
     one_c = (times[cand] - times[cand - 1]) / np.where(t_pc > 0, t_pc, np.inf)
-    for i, t_p in zip(cand[np.abs(one_c - 1.0) <= 0.08].tolist(),
-                      t_pc[np.abs(one_c - 1.0) <= 0.08].tolist()):
+    at_one = np.abs(one_c - 1.0) <= 0.08
+    for i, t_p in zip(cand[at_one].tolist(), t_pc[at_one].tolist()):
         if lab[i - 1] != 0:
             continue
         if levels is not None and (levels[i] < levels[i - 1] - 3.0 or levels[i] < mid):
@@ -2858,6 +2859,8 @@ def _label_free_periods(times: np.ndarray, centres: np.ndarray, *, half: int = 1
     out = np.full(len(centres), np.nan)
     for k, c in enumerate(np.asarray(centres).tolist()):
         w = t[max(0, c - half):c + half + 1]
+        if w.size < 2:
+            continue
         d = np.concatenate([w[lag:] - w[:-lag] for lag in range(1, max_lag + 1)
                             if lag < w.size])
         d = d[d > 0]
