@@ -2584,8 +2584,10 @@ def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
     groups 4 or more pooled standard deviations apart, the smaller holding
     15 % or more, and 1 dB or more apart in level or 3 % in ring), or
     quieter clicks arriving at one consistent fraction of the period
-    (:func:`_second_click_phase`).  The louder family is the main click
-    (kind 0).
+    (:func:`_second_click_phase`) -- unless, with no alternation and no
+    second template, those quieter clicks ring as the louder ones do: a
+    room's reflection of each click (:func:`_quieter_rings_like_louder`).
+    The louder family is the main click (kind 0).
 
     Parameters
     ----------
@@ -2626,8 +2628,16 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
     # cycle: in deep noise the first stage takes too few of either family for
     # the other tests)
     by_second = int(np.sum(hints == 1)) if hints is not None else 0
-    seen = 2 if (alt < -0.5 or (sep >= 4.0 and share >= 0.15)
-                 or phase is not None or by_second >= max(8, 0.10 * n)) else 1
+    split = sep >= 4.0 and share >= 0.15
+    seen = 2 if (alt < -0.5 or split or phase is not None
+                 or by_second >= max(8, 0.10 * n)) else 1
+    if (seen == 2 and alt >= -0.5 and by_second == 0 and phase is not None
+            and _quieter_rings_like_louder(out, short)):
+        # no alternation and no second template: quieter clicks at one place
+        # in the cycle that ring as the louder ones do are a room's
+        # reflection of each click (it keeps the click's spectrum), as for a
+        # group of examples like the main template (see _TemplateScan)
+        seen = 1
     decided = seen if clicks_per_cycle is None else clicks_per_cycle
     if decided == 1 or n < 2:
         for i, c in enumerate(out):
@@ -2636,7 +2646,7 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
         return out, 1, seen
     if alt < -0.5:
         labels = _two_families(out, feats)
-    elif sep >= 4.0 and share >= 0.15:
+    elif split:
         labels = cl_labels
     elif phase is not None:
         labels = short.astype(np.int64)  # a click a consistent fraction of a period late
@@ -2656,6 +2666,28 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
         else:
             c.cycle = cycle if cycle >= 0 else None
     return out, 2, seen
+
+
+def _quieter_rings_like_louder(clicks: list[Click], quieter: np.ndarray) -> bool:
+    """Whether the ``quieter`` clicks' median ring lies within 3 % of the others'.
+
+    Rings as measured (each click's spectral peak), 8 or more on each side;
+    False otherwise.  A reflection of a click in the room rings as the
+    click does, while a diaphragm's second click rings at its own mix of
+    the plate's modes; 3 % is several times the spread of one family's
+    rings (the middle half within 0.6 % in the generated reverberant rooms)
+    and under the 8 % by which the matched filter tells a group of examples
+    from the main template.  (A two-click engine whose second click rings
+    like its main one, found too rarely to alternate and never by a second
+    template, is then taken for one click per cycle; ``clicks_per_cycle``
+    forces two.)
+    """
+    q = np.asarray(quieter, dtype=bool)
+    r1 = [c.ring_hz for c, is_q in zip(clicks, q.tolist()) if is_q and c.ring_hz]
+    r0 = [c.ring_hz for c, is_q in zip(clicks, q.tolist()) if not is_q and c.ring_hz]
+    if len(r1) < 8 or len(r0) < 8:
+        return False
+    return abs(math.log(float(np.median(r1)) / float(np.median(r0)))) < 0.03
 
 
 def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
