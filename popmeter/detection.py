@@ -2675,7 +2675,7 @@ def _quieter_rings_like_louder(clicks: list[Click], quieter: np.ndarray) -> bool
     False otherwise.  A reflection of a click in the room rings as the
     click does, while a diaphragm's second click rings at its own mix of
     the plate's modes; 3 % is several times the spread of one family's
-    rings (the middle half within 0.6 % in the generated reverberant rooms)
+    rings (the middle half within 0.6 % in a generated reverberant room)
     and under the 8 % by which the matched filter tells a group of examples
     from the main template.  (A two-click engine whose second click rings
     like its main one, found too rarely to alternate and never by a second
