@@ -1430,13 +1430,16 @@ class _TemplateScan:
         spec[(fr < 300.0) | (fr > 0.45 * self.fs_d)] = 0.0
         return float(fr[int(np.argmax(spec))])
 
-    def _install(self, slot: list, h: np.ndarray) -> None:
-        """Make ``h`` (zero mean, unit norm, onset ``P`` samples in) the template of ``slot``."""
+    def _install(self, slot: list, h: np.ndarray, *, ring_hz: float | None = None) -> None:
+        """Make ``h`` (zero mean, unit norm, onset ``P`` samples in) the template of ``slot``.
+
+        ``ring_hz``: its :meth:`_peak_hz` when the caller has it already.
+        """
         # (the conjugate spectrum of a block with the band mask folded in,
         # below half the rate only: see _envelope)
         slot[0] = (np.conj(sp_fft.rfft(h, n=self.M)).astype(np.complex64)
                    * self.mask)[:self.M // 2]
-        slot[1] = self._peak_hz(h)
+        slot[1] = self._peak_hz(h) if ring_hz is None else ring_hz
         slot[2] = h
         # the floor estimator's value on noise alone, relative to the median
         # (white Gaussian noise, fixed seed: the same on every run)
@@ -1698,9 +1701,11 @@ class _TemplateScan:
         # both, and not at the edge of the band searched): the main click's
         # reverberation still fills it; only the octave about f2 is kept
         f_lo, f_hi = float(f[band][0]), float(f[band][-1])
+        peak_hz = self._peak_hz(h)
         if (f_lo < f2 < f_hi and abs(math.log(f2 / self.slots[0][1])) >= 0.08
-                and self._rings_like_main(h) and abs(math.log(f2 / self._peak_hz(h))) >= 0.08):
+                and self._rings_like_main(h) and abs(math.log(f2 / peak_hz)) >= 0.08):
             h = _octave_about(h, fs, f2)
+            peak_hz = self._peak_hz(h)
             self.fold_info["narrowed_to_hz"] = f2
         # nothing of the diaphragm rings below its lowest mode, and the main
         # click rings there or above: a template ringing under 0.8 of the
@@ -1709,14 +1714,13 @@ class _TemplateScan:
         # second click.  Later folds of the same room find the same, so none
         # is tried again.  (A clamped circle's modes lie at 1, 2.08, 3.41 ...
         # times its lowest: Leissa, NASA SP-160, Table 2.1.)
-        low_hz = self._peak_hz(h)
-        if low_hz < 0.8 * self.slots[0][1]:
-            self.fold_info["refused_below_main_hz"] = low_hz
+        if peak_hz < 0.8 * self.slots[0][1]:
+            self.fold_info["refused_below_main_hz"] = peak_hz
             self._folds = self.fold_tries
             return False
         self.phase = phase
         self.folded = True
-        self._install(self.slots[1], h)
+        self._install(self.slots[1], h, ring_hz=peak_hz)
         return True
 
     def _all_clicks(self, lo: int, hi: int, hi_found: int) -> np.ndarray:
@@ -2655,8 +2659,7 @@ def _assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None,
     labels = _by_ring(out, np.asarray(labels, dtype=np.int64))
     if hints is not None:
         labels = np.where(hints >= 0, hints, labels)
-    labels = _second_at_its_place(times, labels,
-                                  levels=np.array([c.level_dbfs for c in out], dtype=float))
+    labels = _second_at_its_place(times, labels, levels=feats[:, 0])
     cycle = -1
     for c, lab in zip(out, labels.tolist()):
         c.kind = lab
@@ -2822,6 +2825,13 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
     # by none), is the next main click (one only the second template found)
     # (the main clicks now are some of ``mains``: the pass above only took
     # clicks out, so each keeps its local period there)
+    def followed_as_main(i: int, t_p: float) -> bool:
+        # the next click at the phase or a whole period later, or none
+        if i + 1 >= n:
+            return True
+        nxt = (times[i + 1] - times[i]) / t_p
+        return abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08
+
     now = np.flatnonzero(lab == 0)
     rank = np.cumsum(lab == 0) - 1
     for i in np.flatnonzero((lab[1:] == 1) & (lab[:-1] == 1)) + 1:
@@ -2833,10 +2843,7 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
         t_p = period[np.searchsorted(mains, m)]
         if t_p <= 0:
             continue
-        one = (times[i] - times[m]) / t_p
-        nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
-        if abs(one - 1.0) <= 0.08 and (
-                nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08):
+        if abs((times[i] - times[m]) / t_p - 1.0) <= 0.08 and followed_as_main(i, t_p):
             lab[i] = 0
     # and where that cycle's second click was missed: a "second" click one
     # local period (+-0.08) after the main click just before it, followed as
@@ -2863,8 +2870,7 @@ def _second_at_its_place(times: np.ndarray, labels: np.ndarray, *,
             continue
         if levels is not None and (levels[i] < levels[i - 1] - 3.0 or levels[i] < mid):
             continue
-        nxt = (times[i + 1] - times[i]) / t_p if i + 1 < n else None
-        if nxt is None or abs(nxt - phase) <= 0.08 or abs(nxt - 1.0) <= 0.08:
+        if followed_as_main(i, t_p):
             lab[i] = 0
     return lab
 

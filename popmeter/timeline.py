@@ -631,10 +631,7 @@ def build_timeline(
     n_cyc = int(starts.size)
 
     stalls: list[Stall] = []
-    for a, b in cyc.stall_gaps:
-        # the longest silence between the main clicks around the gap, the
-        # second clicks inside it counted
-        s0, s1 = _longest_silence(float(t[a]), float(t[b]), second)
+    for s0, s1 in cyc.stall_spans:
         stalls.append(Stall(start_s=s0, end_s=s1, duration_s=s1 - s0))
     n_missed = int(missed.sum())
     if n_missed:
@@ -830,6 +827,8 @@ class _Cycles:
     periods: np.ndarray
     missed: np.ndarray  # 1 where the cycle's own click was filled in
     stall_gaps: list[tuple[int, int]]  # (i, i + 1) main-click indices around each stall
+    # (start, end) in s of each stall: its gap's longest silence, second clicks counted
+    stall_spans: list[tuple[float, float]]
 
 
 def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray,
@@ -848,10 +847,13 @@ def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray,
     gap = t[1:] - t[:-1]
     r = gap / local[:n]
     stall = r >= factor[:n]
-    if second is not None and second.size and stall.any():
-        for i in np.flatnonzero(stall).tolist():
-            s0, s1 = _longest_silence(float(t[i]), float(t[i + 1]), second)
-            stall[i] = s1 - s0 >= factor[i] * local[i]
+    spans: dict[int, tuple[float, float]] = {}
+    for i in np.flatnonzero(stall).tolist():
+        if second is not None and second.size:
+            spans[i] = _longest_silence(float(t[i]), float(t[i + 1]), second)
+            stall[i] = spans[i][1] - spans[i][0] >= factor[i] * local[i]
+        else:
+            spans[i] = (float(t[i]), float(t[i + 1]))
     go = np.flatnonzero(~stall)
     rg = r[go]
     k = np.where(rg >= 1.5, np.round(rg), 1.0).astype(np.int64)
@@ -860,9 +862,9 @@ def _cycles_from_gaps(t: np.ndarray, local: np.ndarray, factor: np.ndarray,
     j = np.arange(at.size) - np.repeat(np.cumsum(k) - k, k)  # its place within the gap
     g = gap[at]
     starts = t[at] + j * g / kc
-    return _Cycles(
-        starts, g / kc, (j > 0).astype(int), [(i, i + 1) for i in np.flatnonzero(stall).tolist()]
-    )
+    at_stall = np.flatnonzero(stall).tolist()
+    return _Cycles(starts, g / kc, (j > 0).astype(int), [(i, i + 1) for i in at_stall],
+                   [spans[i] for i in at_stall])
 
 
 def _longest_silence(t_a: float, t_b: float, second: np.ndarray) -> tuple[float, float]:
