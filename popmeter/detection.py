@@ -1199,7 +1199,12 @@ class _TemplateScan:
     lower than the envelope 2-4 ms before it, so that it is not the falling
     shoulder of something earlier (a narrow search: few noise peaks compete;
     in a reverberant room the filter's response to the main click's echo
-    still fills the 2-4 ms before).
+    still fills the 2-4 ms before).  The same bounded search, at equal steps
+    across an interval of 2-4 periods between known main clicks, takes the
+    main clicks the free scan missed (:meth:`_missed_mains`; in a
+    reverberant room the reverberation of the clicks before raises the
+    noise level, and in a run of cycles some main clicks stay just under
+    the threshold).
 
     **Streaming.**  Chunks are fixed in the stream, each template is frozen
     the moment its last example is measured (set by the audio alone), and a
@@ -1265,6 +1270,8 @@ class _TemplateScan:
         # other family
         self.other_ring: dict[int, float | None] = {}
         self.main_found: list[int] = []  # onsets (decimated) the main template found
+        # ... and those of them :meth:`_missed_mains` found
+        self.filled_found: list[int] = []
         # the filter runs on overlapping blocks of M samples (overlap-save,
         # Oppenheim & Schafer, "Discrete-Time Signal Processing", 1989,
         # section 8.7.3): each gives V outputs, Q more on either side being
@@ -1930,8 +1937,9 @@ class _TemplateScan:
             del self.onsets[:bisect.bisect_left(self.onsets, lo)]
         if self.quick and self.quick[0] < lo:
             del self.quick[:bisect.bisect_left(self.quick, lo)]
-        if self.main_found and self.main_found[0] < lo:
-            del self.main_found[:bisect.bisect_left(self.main_found, lo)]
+        for found in (self.main_found, self.filled_found):
+            if found and found[0] < lo:
+                del found[:bisect.bisect_left(found, lo)]
 
     def _scan(self, a: int, si: int) -> None:
         hc = self.slots[si][0]
@@ -2017,6 +2025,9 @@ class _TemplateScan:
         c = c[env[c] > env[c[:, None] - off_r1].max(axis=1)]
         c = c[env[c] >= env[np.minimum(c[:, None] + off_r2, last)].max(axis=1)]
         c = c[env[c] >= 2.0 * env[c[:, None] - off_l].max(axis=1)]
+        filled = self._missed_mains(base, n_out, env, floor, near, c) if si == 0 else c[:0]
+        if filled.size:
+            c = np.union1d(c, filled)
         if expect:
             order = np.unique(np.concatenate([c, np.array(
                 self._expected(base, n_out, env, floor, near), dtype=np.int64)]))
@@ -2033,7 +2044,11 @@ class _TemplateScan:
         self.click_fit.extend(np.minimum(fit, 1.0).tolist())
         self.click_slot.extend([si] * order.size)
         if si == 0:
-            self.main_found.extend((base + of).tolist())
+            # (the main clicks found between known ones are kept apart: the
+            # folds read the free scan's finds alone)
+            was_filled = np.isin(order, filled)
+            self.main_found.extend((base + of[~was_filled]).tolist())
+            self.filled_found.extend((base + of[was_filled]).tolist())
         # the peak's time between the envelope's samples: quadratic
         # interpolation (in float64: a float32 sum would round the stream
         # index itself, by up to 16 decimated samples after 93 minutes)
@@ -2106,6 +2121,10 @@ class _TemplateScan:
             # echoes, 7 dB or more quieter, stay out)
             lo, hi = base - round(self.fs_d), base + n_out
             ons = self._all_clicks(lo, hi, base + self.E + self.C)
+            ff = self.filled_found
+            ons = np.union1d(ons, np.array(
+                ff[bisect.bisect_left(ff, lo):bisect.bisect_left(ff, base + self.E + self.C)],
+                dtype=np.int64)).astype(np.int64)
             quick = np.array(self.quick[bisect.bisect_left(self.quick, lo):
                                         bisect.bisect_left(self.quick, hi)], dtype=np.int64)
             if quick.size and ons.size >= 4:
@@ -2130,28 +2149,103 @@ class _TemplateScan:
         delay = self.phase * period[ok]
         pred = m0[ok] + np.round(delay).astype(np.int64) - base
         half = np.round(0.001 * self.fs_d + 0.03 * delay).astype(np.int64)
+        return self._search(pred, half, n_out, env, floor, [near]).tolist()
+
+    def _search(self, pred: np.ndarray, half: np.ndarray, n_out: int, env: np.ndarray,
+                floor: np.ndarray, avoid: list[tuple[np.ndarray, np.ndarray]]) -> np.ndarray:
+        """The bounded search of :meth:`_expected` and :meth:`_missed_mains`.
+
+        Within +-``half`` of each predicted output sample ``pred`` (both
+        relative to the chunk's base, decimated samples) lying in the chunk,
+        and meeting none of the spans [lo, hi) of ``avoid`` (envelope
+        samples; per pair, both non-decreasing), the envelope's largest
+        sample counts when it is a peak, stands no lower than the envelope
+        2-4 ms before it (not the falling shoulder of something earlier) and
+        reaches ``expect_threshold`` times the noise level of its floor
+        alone.  Returns those peaks' indices into ``env``.
+        """
+        R = self.R
         inside = (pred >= self.E) & (pred < min(self.E + self.C, n_out - 1))
         pred, half = pred[inside], half[inside]
-        # the search windows [a, b) in envelope samples, none within 10 ms of
-        # an accepted click
+        # the search windows [a, b) in envelope samples
         a = np.maximum(-((half - pred) // R), 1)
         b = np.minimum((pred + half) // R + 1, env.size - 1)
-        keep = (a < b) & ~_meets(near[0], near[1], a, b)
+        keep = a < b
+        for lo, hi in avoid:
+            keep &= ~_meets(lo, hi, a, b)
         a, b = a[keep], b[keep]
         if a.size == 0:
-            return []
+            return np.zeros(0, dtype=np.int64)
         span = np.arange(int((b - a).max()))[None, :]
         idx = a[:, None] + span
         vals = np.where(idx < b[:, None], env[np.minimum(idx, env.size - 1)], -np.inf)
         i = a + np.argmax(vals, axis=1)
-        # standing no lower than the envelope 2-4 ms before (not the falling
-        # shoulder of something earlier)
         q1, q2 = round(0.002 * self.fs_d / R), round(0.004 * self.fs_d / R)
         ref = env[np.maximum(i[:, None] - q2 + np.arange(q2 - q1)[None, :], 0)].max(axis=1)
         fl = floor[np.minimum(i // (self.G // R), floor.size - 1)]
         good = ((env[i] * (1.1774 / fl) >= self.expect_threshold)
                 & (env[i] >= env[i - 1]) & (env[i] >= env[i + 1]) & (env[i] >= ref))
-        return i[good].tolist()
+        return i[good]
+
+    def _missed_mains(self, base: int, n_out: int, env: np.ndarray, floor: np.ndarray,
+                      near: tuple[np.ndarray, np.ndarray], found: np.ndarray) -> np.ndarray:
+        """Main clicks the free scan missed between known ones, where the cycle puts them.
+
+        The known main clicks are the accepted clicks like the main template,
+        the main template's finds in the chunks before (from 1 s before
+        this chunk) and ``found``, this chunk's finds (indices into ``env``).
+        The shortest usual interval between them (their lower quartile) is
+        the period; an interval of 2 to 4 periods (within 25 %) holds missed
+        main clicks, expected at equal steps across it; each is searched
+        within +-(1 ms + 4 % of a step) (:meth:`_search`: the envelope's
+        largest peak there at ``expect_threshold`` times the floor), away
+        from the accepted clicks and the finds (10 ms).  A peak counts when
+        it also rises as the free scan's do (twice the envelope from the
+        template's length + 1 ms to + 4 ms before it) and stands at half or
+        more of the median envelope peak of the chunk's known main clicks (4
+        or more of them): a main click missed in noise is about as loud as
+        the others, while in a reverberant room at a high click-to-noise
+        ratio the room's response, far above the noise floor, stays under
+        that.  The finds are main clicks (kind 0); they count for the second
+        clicks' search of a folded template but not for the folds.  Returns
+        indices into ``env``.
+        """
+        R = self.R
+        none = np.zeros(0, dtype=np.int64)
+        lo, hi = base - round(self.fs_d), base + n_out
+        mf = self.main_found
+        ons = np.union1d(np.union1d(
+            self._mains(lo, hi),
+            np.array(mf[bisect.bisect_left(mf, lo):bisect.bisect_left(mf, hi)], dtype=np.int64)),
+            base + R * found).astype(np.int64)
+        if ons.size < 4:
+            return none
+        gaps = np.diff(ons).astype(np.float64)
+        p0 = float(np.percentile(gaps, 25))
+        if not 0 < p0 <= 0.5 * self.fs_d:
+            return none
+        k = np.round(gaps / p0)
+        step = gaps / np.maximum(k, 1.0)
+        holds = np.flatnonzero((k >= 2) & (k <= 4) & (np.abs(step / p0 - 1.0) < 0.25))
+        if holds.size == 0:
+            return none
+        # (per interval, its k - 1 places)
+        reps = (k[holds] - 1).astype(np.int64)
+        g = np.repeat(holds, reps)
+        j = np.arange(reps.sum()) - np.repeat(np.cumsum(reps) - reps, reps) + 1
+        pred = np.round(ons[g] + j * step[g]).astype(np.int64) - base
+        half = np.round(0.001 * self.fs_d + 0.04 * step[g]).astype(np.int64)
+        rn = round(0.010 * self.fs_d) // R
+        i = self._search(pred, half, n_out, env, floor, [near, (found - rn, found + rn + 1)])
+        kj = (ons - base) // R
+        kj = kj[(kj >= 2) & (kj < env.size - 3)]
+        if i.size == 0 or kj.size < 4:
+            return none
+        known = env[kj[:, None] + np.arange(-2, 3)[None, :]].max(axis=1)
+        l1 = round((self.L + round(0.004 * self.fs_d)) / R)
+        l2 = round((self.L + round(0.001 * self.fs_d)) / R)
+        rise = env[np.maximum(i[:, None] - np.arange(l2, l1 + 1)[None, :], 0)].max(axis=1)
+        return i[(env[i] >= 0.5 * float(np.median(known))) & (env[i] >= 2.0 * rise)]
 
     def _rings(self, starts: list[int], si: int) -> list[float | None]:
         """Ring frequency (Hz) of the 20 ms tails at these buffer indices.
