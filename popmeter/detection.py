@@ -1200,7 +1200,7 @@ class _TemplateScan:
     shoulder of something earlier (a narrow search: few noise peaks compete;
     in a reverberant room the filter's response to the main click's echo
     still fills the 2-4 ms before).  The same bounded search, at equal steps
-    across an interval of 2-4 periods between known main clicks, takes the
+    across an interval of 2-6 periods between known main clicks, takes the
     main clicks the free scan missed (:meth:`_missed_mains`; in a
     reverberant room the reverberation of the clicks before raises the
     noise level, and in a run of cycles some main clicks stay just under
@@ -2195,7 +2195,7 @@ class _TemplateScan:
         the main template's finds in the chunks before (from 1 s before
         this chunk) and ``found``, this chunk's finds (indices into ``env``).
         The shortest usual interval between them (their lower quartile) is
-        the period; an interval of 2 to 4 periods (within 25 %) holds missed
+        the period; an interval of 2 to 6 periods (within 25 %) holds missed
         main clicks, expected at equal steps across it; each is searched
         within +-(1 ms + 4 % of a step) (:meth:`_search`: the envelope's
         largest peak there at ``expect_threshold`` times the floor), away
@@ -2226,7 +2226,7 @@ class _TemplateScan:
             return none
         k = np.round(gaps / p0)
         step = gaps / np.maximum(k, 1.0)
-        holds = np.flatnonzero((k >= 2) & (k <= 4) & (np.abs(step / p0 - 1.0) < 0.25))
+        holds = np.flatnonzero((k >= 2) & (k <= 6) & (np.abs(step / p0 - 1.0) < 0.25))
         if holds.size == 0:
             return none
         # (per interval, its k - 1 places)
