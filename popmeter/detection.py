@@ -2221,7 +2221,7 @@ class _TemplateScan:
         if ons.size < 4:
             return none
         gaps = np.diff(ons).astype(np.float64)
-        p0 = float(np.percentile(gaps, 25))
+        p0 = float(_percentile(gaps, 25))
         if not 0 < p0 <= 0.5 * self.fs_d:
             return none
         k = np.round(gaps / p0)
