@@ -2182,7 +2182,8 @@ class _TemplateScan:
         i = a + np.argmax(vals, axis=1)
         q1, q2 = round(0.002 * self.fs_d / R), round(0.004 * self.fs_d / R)
         ref = env[np.maximum(i[:, None] - q2 + np.arange(q2 - q1)[None, :], 0)].max(axis=1)
-        fl = floor[np.minimum(i // (self.G // R), floor.size - 1)]
+        # (a floor of zero, in digital silence, as the free scan's 1e-30)
+        fl = np.maximum(floor[np.minimum(i // (self.G // R), floor.size - 1)], 1e-30)
         good = ((env[i] * (1.1774 / fl) >= self.expect_threshold)
                 & (env[i] >= env[i - 1]) & (env[i] >= env[i + 1]) & (env[i] >= ref))
         return i[good]
