@@ -2113,8 +2113,9 @@ class _TemplateScan:
         """
         R = self.R
         if self.folded:
-            # (the main template's finds up to this chunk's end: it scans each
-            # chunk before the second template does; and the quick rejected
+            # (the main template's finds up to this chunk's end, those of
+            # :meth:`_missed_mains` too: it scans each chunk before the second
+            # template does; and the quick rejected
             # candidates like the main template and about as loud as the
             # main clicks, so that main clicks a reverberant room kept from
             # being accepted do not leave double periods, while the room's
