@@ -654,6 +654,24 @@ def test_reverberant_two_click_engine_at_12_db_finds_main_clicks_between_known_o
     assert res.clicks_per_cycle == 2
 
 
+@pytest.mark.parametrize("clicks_per_cycle, rt60", [(1, None), (2, None), (2, 0.5)])
+def test_search_for_missed_main_clicks_puts_none_in_a_stall(clicks_per_cycle, rt60):
+    # the search for main clicks missed between known ones spans intervals
+    # of 2-6 periods, and a stall of 4.5-8 periods is silent: at 12 dB, every
+    # pop at that level, no click may be found inside one (from 20 ms after
+    # its last click to 5 ms before the next; seeds 0-3 of these cases had
+    # none before the search was added, and none after)
+    for seed in (0, 1):
+        x, truth, fs = _render(click_to_noise_db=12.0, seed=seed, clicks_per_cycle=clicks_per_cycle,
+                               reverb_rt60_s=rt60, duration_s=40.0, fade_s=8.0,
+                               startup_level_db=0.0, fade_level_db=0.0, weak_pop_prob=0.0,
+                               stalls=2, stall_periods=(4.5, 8.0))
+        assert len(truth["stalls"]) == 2
+        t = np.array([c.time_s for c in detect_clicks(x, fs).clicks])
+        for st in truth["stalls"]:
+            assert not np.any((t > st["start_s"] + 0.020) & (t < st["end_s"] - 0.005))
+
+
 def test_decay_times_alone_do_not_make_two_families():
     # one click family whose measured decay times fall into two groups (a
     # reverberant room does that: 6 ms and 13 ms here, at random), same
