@@ -1730,12 +1730,17 @@ class _TemplateScan:
         self._install(self.slots[1], h, ring_hz=peak_hz)
         return True
 
-    def _all_clicks(self, lo: int, hi: int, hi_found: int) -> np.ndarray:
-        """Accepted onsets in [lo, hi) and the main template's finds in [lo, hi_found), sorted."""
-        on, mf = self.onsets, self.main_found
-        return np.array(sorted(on[bisect.bisect_left(on, lo):bisect.bisect_left(on, hi)]
-                               + mf[bisect.bisect_left(mf, lo):bisect.bisect_left(mf, hi_found)]),
-                        dtype=np.int64)
+    def _all_clicks(self, lo: int, hi: int, hi_found: int, *, filled: bool = False
+                    ) -> np.ndarray:
+        """Accepted onsets in [lo, hi) and the main template's finds in [lo, hi_found), sorted.
+
+        With ``filled``, the finds of :meth:`_missed_mains` too (the folds
+        read the free scan's finds alone).
+        """
+        parts = [_between(self.onsets, lo, hi), _between(self.main_found, lo, hi_found)]
+        if filled:
+            parts.append(_between(self.filled_found, lo, hi_found))
+        return np.sort(np.concatenate(parts))
 
     def _mains(self, lo: int, hi: int) -> np.ndarray:
         """Accepted onsets in [lo, hi) (decimated) that match the main template."""
@@ -2025,7 +2030,8 @@ class _TemplateScan:
         c = c[env[c] > env[c[:, None] - off_r1].max(axis=1)]
         c = c[env[c] >= env[np.minimum(c[:, None] + off_r2, last)].max(axis=1)]
         c = c[env[c] >= 2.0 * env[c[:, None] - off_l].max(axis=1)]
-        filled = self._missed_mains(base, n_out, env, floor, near, c) if si == 0 else c[:0]
+        filled = (self._missed_mains(base, n_out, env, floor, near, c, off_l) if si == 0
+                  else c[:0])
         if filled.size:
             c = np.union1d(c, filled)
         if expect:
@@ -2121,13 +2127,8 @@ class _TemplateScan:
             # being accepted do not leave double periods, while the room's
             # echoes, 7 dB or more quieter, stay out)
             lo, hi = base - round(self.fs_d), base + n_out
-            ons = self._all_clicks(lo, hi, base + self.E + self.C)
-            ff = self.filled_found
-            ons = np.union1d(ons, np.array(
-                ff[bisect.bisect_left(ff, lo):bisect.bisect_left(ff, base + self.E + self.C)],
-                dtype=np.int64)).astype(np.int64)
-            quick = np.array(self.quick[bisect.bisect_left(self.quick, lo):
-                                        bisect.bisect_left(self.quick, hi)], dtype=np.int64)
+            ons = self._all_clicks(lo, hi, base + self.E + self.C, filled=True)
+            quick = _between(self.quick, lo, hi)
             if quick.size and ons.size >= 4:
                 like = np.array([m is True for m in self._match_main(quick)], dtype=bool)
                 loud = self._peaks(quick) >= 0.6 * np.percentile(self._peaks(ons), 75)
@@ -2190,12 +2191,14 @@ class _TemplateScan:
         return i[good]
 
     def _missed_mains(self, base: int, n_out: int, env: np.ndarray, floor: np.ndarray,
-                      near: tuple[np.ndarray, np.ndarray], found: np.ndarray) -> np.ndarray:
+                      near: tuple[np.ndarray, np.ndarray], found: np.ndarray,
+                      off_l: np.ndarray) -> np.ndarray:
         """Main clicks the free scan missed between known ones, where the cycle puts them.
 
         The known main clicks are the accepted clicks like the main template,
         the main template's finds in the chunks before (from 1 s before
-        this chunk) and ``found``, this chunk's finds (indices into ``env``).
+        this chunk) and ``found``, this chunk's finds (indices into ``env``;
+        ``off_l``: the free scan's rise-test offsets, as rows).
         The shortest usual interval between them (their lower quartile) is
         the period; an interval of 2 to 6 periods (within 25 %) holds missed
         main clicks, expected at equal steps across it; each is searched
@@ -2215,11 +2218,8 @@ class _TemplateScan:
         R = self.R
         none = np.zeros(0, dtype=np.int64)
         lo, hi = base - round(self.fs_d), base + n_out
-        mf = self.main_found
-        ons = np.union1d(np.union1d(
-            self._mains(lo, hi),
-            np.array(mf[bisect.bisect_left(mf, lo):bisect.bisect_left(mf, hi)], dtype=np.int64)),
-            base + R * found).astype(np.int64)
+        ons = np.union1d(np.union1d(self._mains(lo, hi), _between(self.main_found, lo, hi)),
+                         base + R * found)
         if ons.size < 4:
             return none
         gaps = np.diff(ons).astype(np.float64)
@@ -2244,9 +2244,7 @@ class _TemplateScan:
         if i.size == 0 or kj.size < 4:
             return none
         known = env[kj[:, None] + np.arange(-2, 3)[None, :]].max(axis=1)
-        l1 = round((self.L + round(0.004 * self.fs_d)) / R)
-        l2 = round((self.L + round(0.001 * self.fs_d)) / R)
-        rise = env[np.maximum(i[:, None] - np.arange(l2, l1 + 1)[None, :], 0)].max(axis=1)
+        rise = env[np.maximum(i[:, None] - off_l, 0)].max(axis=1)
         return i[(env[i] >= 0.5 * float(np.median(known))) & (env[i] >= 2.0 * rise)]
 
     def _rings(self, starts: list[int], si: int) -> list[float | None]:
@@ -2286,6 +2284,12 @@ class _TemplateScan:
                     f += 0.5 * (al - ga) / den * float(grid[1] - grid[0])
             out[j] = f
         return out
+
+
+def _between(values: list[int], lo: int, hi: int) -> np.ndarray:
+    """The values in [lo, hi) of a sorted list of integers, as an int64 array."""
+    return np.array(values[bisect.bisect_left(values, lo):bisect.bisect_left(values, hi)],
+                    dtype=np.int64)
 
 
 def _rows(x: np.ndarray, starts: np.ndarray, length: int) -> np.ndarray:
