@@ -1,6 +1,7 @@
 """Accuracy, speed and memory of popmeter's click detector (issue 3 figures).
 
-Run:  python benchmarks/bench_detection.py [--quick] [--skip-speed] [--skip-memory]
+Run:  python benchmarks/bench_detection.py [--quick] [--seeds N] [--skip-speed]
+      [--skip-memory] [--skip-accuracy] [--without-template-scan]
 
 Accuracy: recordings from the project's generator (popmeter.synth.render) with
 ground truth, one table per click-to-noise ratio (30, 20, 12 dB) over a set of
@@ -28,9 +29,15 @@ reading, detection, timeline, summary) and the detection alone
 matched-filter pass) on a 48 kHz mono WAV file, side by side with librosa.load +
 librosa.onset.onset_detect (default settings) on the same file; best of five
 after a warm-up run, in one process, with OMP/OpenBLAS/MKL/numba thread pools
-set to one thread (one core); and analyze_file once more in a fresh process
-with the libraries' default thread pools, as a user running ``popmeter
-analyze`` gets it.
+set to one thread (one core); the design's first steps alone (reading, the
+full-rate high-pass, the frame stage's STFT), whose sum is a floor for the
+whole analyze; both paths started as a user starts them (fresh processes,
+imports included: the ``popmeter analyze`` command line against a Python
+that imports librosa and runs the same two calls); and analyze_file once
+more in a fresh process with the libraries' default thread pools.
+
+``--without-template-scan`` runs the accuracy tables with the matched-filter
+pass off: what that pass adds.
 
 Memory: a 2-hour recording built on disk by tiling a generated minute in blocks,
 analysed in a subprocess; peak RSS from resource.getrusage.
@@ -72,8 +79,8 @@ SCENARIOS = {
 }
 
 
-def evaluate(samples: np.ndarray, truth: dict, fs: int) -> dict:
-    res = detect_clicks(samples, fs)
+def evaluate(samples: np.ndarray, truth: dict, fs: int, **options) -> dict:
+    res = detect_clicks(samples, fs, **options)
     ref = np.array([c["time_s"] for c in truth["clicks"]])
     est = np.array([c.time_s for c in res.clicks])
     f, p, r = mir_eval.onset.f_measure(ref, est, window=0.005)
@@ -118,10 +125,11 @@ def _nanmean(values: list) -> float:
 EVEN = {"startup_level_db": 0.0, "fade_level_db": 0.0, "weak_pop_prob": 0.0}
 
 
-def accuracy(seeds: list[int], duration_s: float, condition: str) -> None:
+def accuracy(seeds: list[int], duration_s: float, condition: str, **options) -> None:
     levels = EVEN if condition == "even" else {}
+    extra = "".join(f", {k}={v}" for k, v in options.items())
     print(f"\n== accuracy, {condition} levels: {len(SCENARIOS)} scenarios x seeds {seeds}, "
-          f"{duration_s:.0f} s each, 48 kHz, mir_eval window 5 ms ==")
+          f"{duration_s:.0f} s each, 48 kHz, mir_eval window 5 ms{extra} ==")
     cpc_all = []
     for cnr in (30.0, 20.0, 12.0):
         rows = []
@@ -130,7 +138,7 @@ def accuracy(seeds: list[int], duration_s: float, condition: str) -> None:
                 sc = synth.RunScenario(duration_s=duration_s, click_to_noise_db=cnr, seed=seed,
                                        **kw, **levels)
                 x, truth = synth.render(sc)
-                m = evaluate(x[:, 0], truth, sc.sample_rate_hz)
+                m = evaluate(x[:, 0], truth, sc.sample_rate_hz, **options)
                 m["name"] = name
                 rows.append(m)
                 cpc_all.append(m["cpc_ok"])
@@ -194,6 +202,58 @@ def _librosa_path(path: str) -> int:
     return len(librosa.onset.onset_detect(y=y, sr=sr))
 
 
+def _fixed_steps(path: str) -> dict:
+    """The first steps of the detector's design, each alone over the whole file.
+
+    Compiled library routines only, with the detector's own parameters
+    (ClickDetector's high-pass, frame length, hop and watched bins):
+    reading the samples (soundfile), the full-rate high-pass (scipy
+    sosfilt), and the frame stage's STFT at its hop of 2 ms on the
+    decimated stream (scipy.fft, in blocks of about 5 s; the plain
+    every-q-th sample stands in for the decimating filter, the cost is the
+    FFTs') with the dB level of the watched bins.  Their sum is what the
+    design costs before any statistics, candidate or matched filter: a
+    floor for the whole analyze.  Returns name -> zero-argument function.
+    """
+    import scipy.fft as sp_fft
+    from scipy import signal
+
+    from popmeter.detection import ClickDetector
+
+    info = sf.info(path)
+    det = ClickDetector(info.samplerate)
+    # (private attributes read on purpose: the benchmark must time the very
+    # sizes the detector uses)
+    sos, q, n_fft, hop = det._hp_sos, det._q, det._n_fft, det._hop_d
+    b0, b1, win = det._bin_lo, det._bin_hi, det._win
+    x = sf.read(path, dtype="float32")[0]
+    d = np.ascontiguousarray(x[::q])
+    # in blocks of about 5 s of the decimated stream, as the detector gets
+    # them from open_stream (one whole-file array of frames would time the
+    # allocation of 300 MB of fresh pages instead)
+    blk = hop * (round(5.0 * info.samplerate / q) // hop)
+    starts = range(0, max(1, d.size - n_fft + 1), blk)
+
+    def read() -> None:
+        sf.read(path, dtype="float32")
+
+    def highpass() -> None:
+        signal.sosfilt(sos, x)
+
+    def stft_levels() -> None:
+        for a in starts:
+            frames = np.lib.stride_tricks.sliding_window_view(d[a:a + blk + n_fft - hop],
+                                                              n_fft)[::hop]
+            w = sp_fft.rfft(frames * win, axis=1, overwrite_x=True)[:, b0:b1]
+            lv = w.real ** 2
+            lv += w.imag ** 2
+            lv += np.float32(1e-13)
+            np.log10(lv, out=lv)
+
+    return {"reading (soundfile)": read, "full-rate high-pass (sosfilt)": highpass,
+            "STFT at 2 ms hop, dB of the watched bins": stft_levels}
+
+
 def speed(tmp: str, minutes: float) -> None:
     sc = synth.RunScenario(duration_s=60.0 * minutes, click_to_noise_db=20.0, seed=5,
                            clicks_per_cycle=2, hum_dbfs=-45.0, distractors=("speech", "splash"))
@@ -206,8 +266,14 @@ def speed(tmp: str, minutes: float) -> None:
     _analyze_equivalent(path)
     analyze_file(path)
     _librosa_path(path)  # warm-up: numba compilation and caches
+    steps = _fixed_steps(path)
+    t_steps: dict[str, list[float]] = {name: [] for name in steps}
     t_all, t_ours, t_lib, t_noscan = [], [], [], []
     for _ in range(5):  # (interleaved: a slow spell of the machine hits every path)
+        for name, step in steps.items():
+            t0 = time.perf_counter()
+            step()
+            t_steps[name].append(time.perf_counter() - t0)
         t0 = time.perf_counter()
         analyze_file(path)
         t_all.append(time.perf_counter() - t0)
@@ -230,6 +296,14 @@ def speed(tmp: str, minutes: float) -> None:
     per_round = sorted(x / y for x, y in zip(t_all, t_lib))
     print(f"ratio analyze / librosa time                   : {w / b:7.2f}  (per round: "
           f"median {per_round[2]:.2f}, {per_round[0]:.2f}-{per_round[-1]:.2f})")
+    print("the design's first steps alone, each over the whole file (best of 5, same rounds):")
+    floor = 0.0
+    for name, ts in t_steps.items():
+        floor += min(ts)
+        print(f"  {name:45s}: {min(ts):7.3f} s")
+    print(f"  {'their sum (a floor for the whole analyze)':45s}: {floor:7.3f} s  "
+          f"= {floor / b:.2f} x librosa's best")
+    cold(path, dur)
     # what a user running `popmeter analyze` gets: the libraries' own thread
     # pools (no forced single thread), in a fresh process, best of 3
     env = {k: v for k, v in os.environ.items() if k not in _THREAD_VARS}
@@ -238,6 +312,41 @@ def speed(tmp: str, minutes: float) -> None:
     d = float(out[0])
     print(f"analyze_file, default thread pools (fresh)     : {d:7.3f} s  = {dur / d:7.0f}x real time")
     stages(path)
+
+
+_LIBROSA_CHILD = """
+import sys
+import librosa
+y, sr = librosa.load(sys.argv[1])
+librosa.onset.onset_detect(y=y, sr=sr)
+"""
+
+
+def cold(path: str, dur: float) -> None:
+    """Each path as a user starts it: a fresh process, imports included (best of 3 wall times).
+
+    ``python -m popmeter analyze FILE`` (the command line, printing its
+    summary) against a fresh Python that imports librosa and runs
+    librosa.load + onset_detect (numba compiles librosa's kernels in each
+    new process unless its cache has them); thread pools set to one.
+    """
+    runs = {"popmeter analyze FILE (command line)": [sys.executable, "-m", "popmeter",
+                                                      "analyze", path],
+            "python: import librosa, load, onset_detect": [sys.executable, "-c",
+                                                          _LIBROSA_CHILD, path]}
+    best = {}
+    for name, cmd in runs.items():
+        walls = []
+        for _ in range(3):
+            t0 = time.perf_counter()
+            subprocess.run(cmd, capture_output=True, check=True)
+            walls.append(time.perf_counter() - t0)
+        best[name] = min(walls)
+    print("fresh processes, imports included (wall time, best of 3):")
+    for name, t in best.items():
+        print(f"  {name:45s}: {t:7.3f} s  = {dur / t:7.0f}x real time")
+    a, b = best.values()
+    print(f"  {'ratio popmeter / librosa':45s}: {a / b:7.2f}")
 
 
 # where the whole analyze spends its time: (label, the functions whose
@@ -338,11 +447,14 @@ def main() -> None:
     ap.add_argument("--skip-accuracy", action="store_true")
     ap.add_argument("--seeds", type=int, default=6,
                     help="seeds per scenario for the accuracy tables (default 6: 1-6)")
+    ap.add_argument("--without-template-scan", action="store_true",
+                    help="accuracy tables with the matched-filter pass off (what it adds)")
     args = ap.parse_args()
     seeds = [1] if args.quick else list(range(1, args.seeds + 1))
     if not args.skip_accuracy:
+        options = {"template_scan": False} if args.without_template_scan else {}
         for condition in ("even", "generator"):
-            accuracy(seeds, 30.0 if args.quick else 60.0, condition)
+            accuracy(seeds, 30.0 if args.quick else 60.0, condition, **options)
         alone([1, 2, 3])
     with tempfile.TemporaryDirectory() as tmp:
         if not args.skip_speed:
