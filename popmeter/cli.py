@@ -148,6 +148,10 @@ def build_parser() -> argparse.ArgumentParser:
     p.add_argument("--distractors", default="", metavar="LIST",
                    help="comma-separated extra sounds: match,speech,splash,knock,hum")
     p.add_argument("--reverb", action="store_true", help="add room reverberation")
+    p.add_argument("--wall", type=_positive_float, metavar="MS",
+                   help="add a wall's reflection of every sound, MS milliseconds late")
+    p.add_argument("--wall-db", type=float, default=-10.0, metavar="DB",
+                   help="level of that reflection relative to the sound (default -10)")
 
     sub.add_parser("demo", parents=[common], help="run the whole job on the bundled synthetic recordings")
     return parser
@@ -249,6 +253,8 @@ def _cmd_simulate(args: argparse.Namespace) -> int:
         stalls=args.stalls,
         distractors=distractors,
         reverb=args.reverb,
+        wall_ms=args.wall,
+        wall_db=args.wall_db,
     )
     print(f"wrote {written} ({args.duration:g} s at {args.samplerate} Hz, {args.channels} channel(s)) "
           f"and its ground truth {truth_path_for(written)}")

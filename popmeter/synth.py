@@ -189,6 +189,11 @@ class RunScenario:
       ``reverb_predelay_s`` = 0.003 s, with ``reverb_drr_db`` = 3.0
       direct-to-reverberant energy ratio.  Clicks and distractors are
       reverberated; electrical noise and hum are not.
+    * ``wall_delay_s`` = None (no wall): a hard wall near the tank answers
+      every click and distractor once, this much later (the extra path over
+      the speed of sound, about 343 m/s at 20 C, from memory: 2 m more is
+      5.8 ms), ``wall_level_db`` = -10.0 dB down (one specular reflection,
+      unfiltered; with reverberation, reverberated too).
     * ``distractors`` = (): :class:`Distractor` items (or kind names).
 
     ``seed`` = 0: the random seed.
@@ -245,6 +250,8 @@ class RunScenario:
     reverb_rt60_s: float | None = None
     reverb_predelay_s: float = 0.003
     reverb_drr_db: float = 3.0
+    wall_delay_s: float | None = None
+    wall_level_db: float = -10.0
     distractors: tuple[Distractor | str, ...] = field(default_factory=tuple)
     seed: int = 0
 
@@ -289,6 +296,12 @@ def _check(scenario: RunScenario) -> None:
         )
     if not 0.05 <= s.second_click_delay <= 0.95:
         problems.append(f"second_click_delay={s.second_click_delay} must be in 0.05-0.95")
+    if s.wall_delay_s is not None and not 0 < s.wall_delay_s < s.duration_s:
+        problems.append(f"wall_delay_s={s.wall_delay_s} must be positive and shorter than "
+                        "the recording")
+    if not s.wall_level_db < 0:
+        problems.append(f"wall_level_db={s.wall_level_db} must be negative (a reflection is "
+                        "quieter than the sound)")
     if s.noise_colour not in ("pink", "white"):
         problems.append(f"noise_colour={s.noise_colour!r} must be 'pink' or 'white'")
     for name in ("heating_s", "startup_s", "fade_s", "after_s"):
@@ -777,6 +790,12 @@ def render(scenario: RunScenario) -> tuple[np.ndarray, dict]:
                                     rng=rng_room)
         clicks_track = signal.oaconvolve(clicks_track, rir)[:n]
         room_track = signal.oaconvolve(room_track, rir)[:n]
+    if s.wall_delay_s:
+        # (after the reverberation or before it: convolutions commute)
+        k = round(s.wall_delay_s * fs)
+        g = 10 ** (s.wall_level_db / 20.0)
+        for track in (clicks_track, room_track):
+            track[k:] += g * track[:n - k].copy()
 
     # noise scaled to the click-to-noise ratio (definition: module docstring)
     ref_peak_band = float(np.max(np.abs(bandlimit(
@@ -1005,6 +1024,8 @@ def simulate_to_file(
     stalls: int = 0,
     distractors: Iterable[str] = (),
     reverb: bool = False,
+    wall_ms: float | None = None,
+    wall_db: float = -10.0,
 ) -> Path:
     """Write a synthetic recording and its ground truth beside it.
 
@@ -1047,6 +1068,11 @@ def simulate_to_file(
         -40 dBFS).  Default none.
     reverb : bool
         Add room reverberation (RT60 0.5 s) when true; default dry.
+    wall_ms : float or None
+        A wall's reflection of every sound, this many milliseconds late
+        (``RunScenario.wall_delay_s``); default ``None``, no wall.
+    wall_db : float
+        Its level relative to the sound, dB (default -10).
 
     Returns
     -------
@@ -1073,6 +1099,8 @@ def simulate_to_file(
         "click_to_noise_db": click_to_noise_db, "clicks_per_cycle": int(clicks_per_cycle),
         "stalls": int(stalls), "distractors": others, "hum_dbfs": -40.0 if hum else None,
         "reverb_rt60_s": 0.5 if reverb else None, "seed": int(seed),
+        "wall_delay_s": None if wall_ms is None else float(wall_ms) / 1000.0,
+        "wall_level_db": float(wall_db),
     }
     if steady_rate_hz is not None:
         overrides["steady_rate_hz"] = float(steady_rate_hz)

@@ -282,6 +282,26 @@ def test_room_impulse_response_rt60():
     assert drr_db == pytest.approx(3.0, abs=0.01)
 
 
+def test_a_wall_adds_one_delayed_quieter_copy_of_every_sound():
+    # a single specular reflection: the recording is the wall-less one plus
+    # itself delayed and scaled (noise off: the noise is not reflected);
+    # 6.4 ms is 2.2 m of extra path at 343 m/s (20 C, from memory)
+    fs = 24000
+    base = short(click_to_noise_db=None, distractors=("knock",), seed=5)
+    x0, truth0 = render(base)
+    x1, truth1 = render(base.replace(wall_delay_s=0.0064, wall_level_db=-12.0))
+    k, g = round(0.0064 * fs), 10 ** (-12.0 / 20)
+    expect = x0[:, 0].astype(np.float64)
+    expect[k:] += g * x0[:-k, 0]
+    assert np.allclose(x1[:, 0], expect, atol=2e-6)
+    assert truth1["clicks"] == truth0["clicks"]  # a reflection is not a click
+    assert truth1["scenario"]["wall_delay_s"] == 0.0064
+    with pytest.raises(UsageError, match="wall_level_db"):
+        render(base.replace(wall_delay_s=0.01, wall_level_db=3.0))
+    with pytest.raises(UsageError, match="wall_delay_s"):
+        render(base.replace(wall_delay_s=-0.01))
+
+
 def test_click_channel_is_the_loudest():
     fs = 24000
     x, truth = render(short(channels=3, click_channel=2, seed=17))
@@ -308,7 +328,8 @@ def test_simulate_to_file_and_load_truth(tmp_path):
 
     out = simulate_to_file(tmp_path / "unit.wav", seed=3, duration_s=12.0, sample_rate_hz=16000,
                            click_to_noise_db=25.0, clicks_per_cycle=2, stalls=1,
-                           distractors=("knock", "hum"), reverb=True)
+                           distractors=("knock", "hum"), reverb=True, wall_ms=12.5,
+                           wall_db=-8.0)
     assert out == tmp_path / "unit.wav" and out.exists()
     assert truth_path_for(out) == tmp_path / "unit.truth.json"
     truth = load_truth(out)
@@ -319,6 +340,8 @@ def test_simulate_to_file_and_load_truth(tmp_path):
     assert truth["clicks_per_cycle"] == 2 and truth["hum_hz"] == 50.0
     assert [d["type"] for d in truth["distractors"]] == ["knock"]
     assert truth["reverb_rt60_s"] == 0.5
+    assert truth["scenario"]["wall_delay_s"] == 0.0125
+    assert truth["scenario"]["wall_level_db"] == -8.0
     assert truth["clicks"] and len(truth["stalls"]) == 1
     with pytest.raises(UsageError, match="thunder"):
         simulate_to_file(tmp_path / "x.wav", duration_s=12.0, distractors=("thunder",))
