@@ -1439,8 +1439,8 @@ class _TemplateScan:
         rings at its own mix of the plate's modes.  (On the generator's
         recordings, 432 of them: the 185 second templates of two-click
         engines ring 4.7 % or more from the main one, 96 % of them at 1.8-2.3
-        times its frequency; the templates three reverberant rooms gave a
-        one-click engine, 0.8 % and 1.8 % from it.)  The same 3 % as
+        times its frequency; the templates two reverberant rooms gave a
+        one-click engine, in three runs, 0.8-1.8 % from it.)  The same 3 % as
         :func:`_quieter_rings_like_louder`.
         """
         main, second = self.slots

@@ -299,7 +299,7 @@ def _check(scenario: RunScenario) -> None:
     if s.wall_delay_s is not None and not 0 < s.wall_delay_s < s.duration_s:
         problems.append(f"wall_delay_s={s.wall_delay_s} must be positive and shorter than "
                         "the recording")
-    if not s.wall_level_db < 0:
+    if s.wall_delay_s is not None and not s.wall_level_db < 0:
         problems.append(f"wall_level_db={s.wall_level_db} must be negative (a reflection is "
                         "quieter than the sound)")
     if s.noise_colour not in ("pink", "white"):
@@ -792,7 +792,7 @@ def render(scenario: RunScenario) -> tuple[np.ndarray, dict]:
         room_track = signal.oaconvolve(room_track, rir)[:n]
     if s.wall_delay_s:
         # (after the reverberation or before it: convolutions commute)
-        k = round(s.wall_delay_s * fs)
+        k = max(1, round(s.wall_delay_s * fs))
         g = 10 ** (s.wall_level_db / 20.0)
         for track in (clicks_track, room_track):
             track[k:] += g * track[:n - k].copy()

@@ -609,10 +609,11 @@ def test_a_forced_clicks_per_cycle_the_clicks_contradict_gives_a_warning():
 
 
 def test_one_click_per_cycle_forced_sets_a_wall_reflection_aside():
-    # a dry one-click run at 30 dB with a wall's reflection of everything,
-    # 6 dB down and 40 ms late, added: the decision may take the reflections
-    # for second clicks (it does here: F 0.67); forced to one click per
-    # cycle, they are set aside (F 0.968), and the warning names the room
+    # a dry one-click run at 30 dB with the generator's wall, one reflection
+    # of every sound 6 dB down and 40 ms late: the decision may take the
+    # reflections for second clicks (it does here: F 0.668); forced to one
+    # click per cycle, they are set aside (F 0.975), and the warning names
+    # the room
     sc = synth.RunScenario(duration_s=40.0, click_to_noise_db=30.0, seed=1, clicks_per_cycle=1,
                            wall_delay_s=0.040, wall_level_db=-6.0)
     x, truth = synth.render(sc)
