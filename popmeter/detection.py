@@ -2141,7 +2141,6 @@ class _TemplateScan:
         the accepted clicks; ``floor`` is the floor
         per 10 ms bin (and one past the end); returns indices into ``env``.
         """
-        R = self.R
         if self.folded:
             # (the main template's finds up to this chunk's end, those of
             # :meth:`_missed_mains` too: it scans each chunk before the second
