@@ -2845,11 +2845,12 @@ def _fixed_delay(times: np.ndarray, labels: np.ndarray, *, ignore: np.ndarray | 
     period), when it fits one only.  The delay is fixed when ``min_far`` (8)
     or more fit a fixed delay alone, ``ratio`` (3) times as many as fit a
     fixed place alone; then the median delay is returned, else None (also
-    when there are too few clicks to tell).  (On the generator's recordings
-    at 20 and 30 dB, where the period is far from its median, the median
-    residual of a wall's reflections is 0.1-0.3 ms from a fixed delay and
-    9-12 ms from a fixed place; of second clicks 6-10 ms and 0.5-1.9 ms.
-    The thresholds are our own choices, no published source.)
+    when there are too few clicks to tell).  (On the generator's recordings,
+    where the period is far from its median, the median residual of a
+    wall's reflections 25-40 ms late, at 30 dB, is 0.1-0.3 ms from a fixed
+    delay and 9-12 ms from a fixed place; of second clicks, at 20 and 30 dB,
+    6-10 ms and 0.5-1.9 ms.  The thresholds are our own choices, no
+    published source.)
     """
     mains = times[labels == 0]
     sec = times[(labels == 1) if ignore is None else ((labels == 1) & ~ignore)]
