@@ -135,6 +135,10 @@ _DB_PER_NEPER = 20.0 / math.log(10.0)  # 8.686 dB per neper of amplitude
 # (Harris, Proc. IEEE 66, 1978): a bin 40 dB under the frame's top is leakage.
 _LEAK_DB = 40.0
 _ABS_FLOOR_DB = -110.0  # bin level (dB re a full-scale sine) below which nothing is a click
+# two families ringing within 3 % (in log frequency) ring alike: a reflection
+# keeps its click's spectrum (our own bar, no published source; see
+# _quieter_rings_like_louder and _TemplateScan.second_rings_like_main)
+_SAME_RING_LOG = 0.03
 
 
 @dataclass(slots=True)
@@ -1449,7 +1453,7 @@ class _TemplateScan:
         main, second = self.slots
         if main[0] is None or second[0] is None:
             return False
-        return abs(math.log(second[1] / main[1])) < 0.03
+        return abs(math.log(second[1] / main[1])) < _SAME_RING_LOG
 
     def _peak_hz(self, h: np.ndarray, *, n: int = 2 ** 18) -> float:
         """Frequency (Hz) of the largest spectral peak of ``h`` within the band mask,
@@ -2063,8 +2067,9 @@ class _TemplateScan:
             order = c  # (sorted and distinct already)
         if order.size == 0:
             return
-        self.click_guided.extend((np.isin(order, guided) & ~np.isin(order, c)).tolist()
-                                 if expect else [False] * order.size)
+        # (order is c and the expected search's finds: those not in c are
+        # that search's alone; without it, none)
+        self.click_guided.extend((~np.isin(order, c)).tolist())
         of = R * order  # output samples (decimated) of the peaks
         at = (base + of - self.b0).tolist()
         rings = self._rings(at, si)
@@ -2899,7 +2904,7 @@ def _quieter_rings_like_louder(clicks: list[Click], quieter: np.ndarray) -> bool
     r0 = [c.ring_hz for c, is_q in zip(clicks, q.tolist()) if not is_q and c.ring_hz]
     if len(r1) < 8 or len(r0) < 8:
         return False
-    return abs(math.log(float(np.median(r1)) / float(np.median(r0)))) < 0.03
+    return abs(math.log(float(np.median(r1)) / float(np.median(r0)))) < _SAME_RING_LOG
 
 
 def _by_ring(clicks: list[Click], labels: np.ndarray) -> np.ndarray:
