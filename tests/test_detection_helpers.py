@@ -8,6 +8,7 @@ import pytest
 from popmeter.detection import (
     ClickDetector,
     _aic_split_rows,
+    _among,
     _cover,
     _local_periods,
     _meets,
@@ -65,6 +66,16 @@ def test_meets_equals_a_mask_and_its_running_count():
         b = np.minimum(a + rng.integers(-5, 30, 50), n)
         expected = (a < b) & (cn[np.maximum(a, b)] != cn[a])
         assert np.array_equal((a < b) & _meets(lo, hi, a, b), expected)
+
+
+def test_among_equals_numpy_isin():
+    # reference: numpy.isin, for sorted distinct values and a part of them
+    # (the matched filter's finds and the subsets it marks), empty ones too
+    rng = np.random.default_rng(13)
+    for _ in range(300):
+        values = np.unique(rng.integers(-50, 30000, rng.integers(0, 60)))
+        part = rng.permutation(values)[:rng.integers(0, values.size + 1)]
+        assert np.array_equal(_among(values, part), np.isin(values, part))
 
 
 def test_rows_equals_fancy_indexing():
