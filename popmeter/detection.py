@@ -1304,12 +1304,9 @@ class _TemplateScan:
         self.folded = False  # the second template came from folding
         self._fold_sos = signal.butter(4, 500.0, "highpass", fs=fs_d, output="sos")
         top = 0.45 * fs_d
-        # (the whole band above 500 Hz, then its octaves; their edges, Hz)
-        octaves = [f for f in (500.0, 1000.0, 2000.0, 4000.0) if 2 * f <= top * 1.5 and f < top]
-        self._fold_edges = [(500.0, top)] + [(f, min(2 * f, top)) for f in octaves]
         self._fold_bands = [self._fold_sos] + [
-            signal.butter(2, edges, "bandpass", fs=fs_d, output="sos")
-            for edges in self._fold_edges[1:]]
+            signal.butter(2, (f, min(2 * f, top)), "bandpass", fs=fs_d, output="sos")
+            for f in (500.0, 1000.0, 2000.0, 4000.0) if 2 * f <= top * 1.5 and f < top]
         self._band_zi = [np.zeros((sos.shape[0], 2)) for sos in self._fold_bands]
         self._band_e: list[np.ndarray] | None = [np.zeros(0, dtype=np.float32)
                                                  for _ in self._fold_bands]
@@ -1515,8 +1512,7 @@ class _TemplateScan:
 
         Its template is the average of the windows at that phase, each
         aligned first on the peak of its 1 ms envelope at the ring frequency
-        found there (the largest ratio of the mean power spectrum over that
-        of the window before, within the band where the rise was found),
+        found there (the mean power spectrum over that of the window before),
         then three times on the average by correlation (within +-0.7 ms), and
         cut from ``P`` before the average's onset (its sharpest energy rise
         where the phase lies within the bins that rose -- a room's reflection
@@ -1608,7 +1604,7 @@ class _TemplateScan:
         # main click's echo does not
         top = None
         z_top = 0.0
-        for i_band, e_band in enumerate(self._band_e or []):
+        for e_band in self._band_e or []:
             z, ratio = fold(np.concatenate([[0.0], np.cumsum(e_band[a0:a1], dtype=np.float64)]),
                             loc_t)
             z_top = max(z_top, float(z.max()))
@@ -1622,7 +1618,7 @@ class _TemplateScan:
             rest = np.abs(np.arange(k.size) - ib) > 4
             z_rest = float(z[rest].max()) if rest.any() else 0.0
             if z[ib] >= 3.0 * max(z_rest, 1.0) and (top is None or z[ib] > top[0]):
-                top = (float(z[ib]), ib, float(ratio[ib]), z_rest, i_band)
+                top = (float(z[ib]), ib, float(ratio[ib]), z_rest)
         self.fold_info["z_top"] = z_top
         if top is None:
             if n >= 200 and z_top < 3.0:
@@ -1630,7 +1626,7 @@ class _TemplateScan:
                 # one-click engine; no more folds (they cost time)
                 self._folds = self.fold_tries
             return False
-        self.fold_info.update(z=top[0], ratio=top[2], z_rest=top[3], band=top[4])
+        self.fold_info.update(z=top[0], ratio=top[2], z_rest=top[3])
         ib = top[1]
         kb = int(k[ib])
         # the rise lies within the bin before the one that rose most, or in it
@@ -1656,11 +1652,7 @@ class _TemplateScan:
         sp_on = np.mean(np.abs(sp_fft.rfft(X[:, pre:pre + m], axis=1)) ** 2, axis=0)
         sp_off = np.mean(np.abs(sp_fft.rfft(X[:, pre - m:pre], axis=1)) ** 2, axis=0) + 1e-30
         f = np.arange(sp_on.size) * fs / m
-        # (searched within the band where the fold rose: over the whole band,
-        # the largest of a few hundred noisy ratios may stand above the
-        # second click's own when fewer than about 150 cycles fold)
-        e_lo, e_hi = self._fold_edges[top[4]]
-        band = (f >= e_lo) & (f <= e_hi)
+        band = (f >= 500.0) & (f <= 0.45 * fs)
         f2 = float(f[band][int(np.argmax((sp_on / sp_off)[band]))])
         # first alignment: the peak of the 1 ms narrow-band envelope at f2
         nav = max(4, round(0.001 * fs))
