@@ -1576,12 +1576,30 @@ class _TemplateScan:
         if n < 64:
             return False
         loc_t = _median9(T)  # the local period of each cycle
-        a0 = int(st[0]) - self.b0
-        a1 = int(st[-1] + max(T[-1], loc_t[-1])) - self.b0 + 1
         # (to 0.8 only: a cycle kept may be 15 % shorter than the local
         # period, and the next main click must not fold in)
         nb = 70
         fr = 0.1 + 0.7 * np.arange(nb + 1) / nb
+        # the band energies folded: from the first cycle's start to the last
+        # bin edge (the edges as fold() places them, from that start).  A
+        # cycle's bins may reach past the last click, its local period (the
+        # median of 9) being longer than the cycle; the audio is there up to
+        # the template's length and the scan's look-ahead past ``upto`` (what
+        # a chunk's scan waits for), or to the stream's end on flushing,
+        # where the last fold may come within a cycle of it.  Cycles reaching
+        # further are left out: the same cycles whatever the block sizes.
+        a0 = int(st[0]) - self.b0
+        a1 = a0
+        if self._band_e:
+            last = np.round((st - st[0]) + loc_t * fr[-1]).astype(np.int64)
+            fits = last <= min(upto + self.E2 + self.L, self.n) - self.b0 - a0
+            if not fits.all():
+                st, T, loc_t, last = st[fits], T[fits], loc_t[fits], last[fits]
+                n = int(st.size)
+                self.fold_info["cycles"] = n
+                if n < 64:
+                    return False
+            a1 = a0 + int(last.max())
         k = np.arange(6, nb)
         ref_i = k[:, None] - np.arange(2, 6)[None, :]
 
