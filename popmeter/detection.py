@@ -1276,6 +1276,9 @@ class _TemplateScan:
         # on the other family's grid, for a click the kinds pass gives to the
         # other family
         self.other_ring: dict[int, float | None] = {}
+        # the onset (decimated) of the main template's last example: where in
+        # the stream it formed (see advance)
+        self._main_formed_at = 0
         self.main_found: list[int] = []  # onsets (decimated) the main template found
         # ... and those of them :meth:`_missed_mains` found
         self.filled_found: list[int] = []
@@ -1345,7 +1348,8 @@ class _TemplateScan:
             self.examples.append(ex)
             self.example_onsets.append(od)
             if len(self.examples) >= self.K:
-                self._make_template(main)
+                if self._make_template(main):
+                    self._main_formed_at = od
                 self.examples, self.example_onsets = [], []
             return
         # a candidate for the second family: unlike the main template (taken
@@ -1956,7 +1960,15 @@ class _TemplateScan:
             if not ok:
                 break
             slot = min(ok, key=lambda sl: sl[3])
-            if slot[0] is not None:
+            # (a chunk the main template formed too late for is given up as
+            # if it had been given up without it: its template's last example
+            # lies more than the look-back past the chunk's end.  Streamed,
+            # such a chunk is given up unless the template forms within the
+            # same call; placing the formation in the stream makes the
+            # chunks scanned the same whatever the calls)
+            late = (slot is self.slots[0]
+                    and slot[3] + self.C + self.lookback < self._main_formed_at)
+            if slot[0] is not None and not late:
                 self._scan(slot[3], next(i for i, sl in enumerate(self.slots) if sl is slot))
             slot[3] += self.C
             # the second template, from examples and by folding, in stream

@@ -463,6 +463,29 @@ def test_a_recording_that_stops_while_the_engine_runs_is_analysed():
     assert [c.sample for c in streamed.clicks] == [c.sample for c in res.clicks]
 
 
+def test_chunks_a_late_main_template_scans_do_not_depend_on_the_calls():
+    # a one-click engine at 39 Hz, 8.7 dB, 96 kHz, two stalls, a knock
+    # (74 s): the main template formed only from clicks after 40 s.  Streamed,
+    # the chunks before 8 s had been given up by then (a chunk waits for a
+    # template at most the look-back past its end); handed the whole array,
+    # the template existed before any chunk was asked and scanned them all:
+    # 463 clicks against 461 in blocks (two matched-filter finds before the
+    # first accepted click).  Now where the template formed in the stream
+    # decides, and every way of feeding the detector gives 460.
+    sc = synth.RunScenario(
+        seed=986863, sample_rate_hz=96000, duration_s=74.45587300614187,
+        steady_rate_hz=38.98543750685275, clicks_per_cycle=1,
+        click_to_noise_db=8.676028698567874, stalls=2, missed_pop_prob=0.04535173647148664,
+        jitter_pct=1.5811919673071064, distractors=("knock",))
+    x, _truth = synth.render(sc)
+    x = x[:, 0]
+    fs = sc.sample_rate_hz
+    whole = [c.sample for c in detect_clicks(x, fs).clicks]
+    assert len(whole) >= 450
+    streamed = detect_clicks_in_blocks([x[i:i + 4096] for i in range(0, x.size, 4096)], fs)
+    assert [c.sample for c in streamed.clicks] == whole
+
+
 def test_room_echo_of_the_main_click_is_not_a_second_click():
     # in a reverberant room the main click's echo folds at a fixed place in a
     # steady cycle just like a second click; its gradual build-up refuses it
