@@ -1216,7 +1216,9 @@ class _TemplateScan:
     the result does not depend on block sizes.  Without its template a chunk
     is kept while the template may still form in time for it (at most
     ``lookback_s`` before the accepted clicks' frontier), so the weak startup
-    clicks before the templates formed are found too.  Memory: at most about
+    clicks before the templates formed are found too; a chunk ending more
+    than ``lookback_s`` before the main template's last example is not
+    scanned with it, however the audio was handed over.  Memory: at most about
     32 s of float32 at the decimated rate (3 MB at 24 kHz) and the clicks
     found.
     """
