@@ -367,12 +367,12 @@ def cold(path: str, dur: float) -> None:
                                                           _LIBROSA_CHILD, path]}
     best = {}
     for name, cmd in runs.items():
-        walls = []
+        wall_s = []
         for _ in range(3):
             t0 = time.perf_counter()
             subprocess.run(cmd, capture_output=True, check=True)
-            walls.append(time.perf_counter() - t0)
-        best[name] = min(walls)
+            wall_s.append(time.perf_counter() - t0)
+        best[name] = min(wall_s)
     print("fresh processes, imports included (wall time, best of 3):")
     for name, t in best.items():
         print(f"  {name:45s}: {t:7.3f} s  = {dur / t:7.0f}x real time")
