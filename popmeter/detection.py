@@ -1312,9 +1312,12 @@ class _TemplateScan:
         self._fold_bands = [self._fold_sos] + [
             signal.butter(2, (f, min(2 * f, top)), "bandpass", fs=fs_d, output="sos")
             for f in (500.0, 1000.0, 2000.0, 4000.0) if 2 * f <= top * 1.5 and f < top]
+        # the band energies the folds read: from the buffer once the main
+        # template forms (no fold comes before it), then with each block fed,
+        # until no fold is to come (see _start_bands)
         self._band_zi = [np.zeros((sos.shape[0], 2)) for sos in self._fold_bands]
-        self._band_e: list[np.ndarray] | None = [np.zeros(0, dtype=np.float32)
-                                                 for _ in self._fold_bands]
+        self._band_e: list[np.ndarray] | None = None
+        self._bands_started = False
 
     @property
     def templates(self) -> list[float]:
@@ -1324,12 +1327,32 @@ class _TemplateScan:
     def feed(self, dec: np.ndarray) -> None:
         self.buf = np.concatenate([self.buf, dec])
         self.n += dec.size
-        if self._band_e is not None and dec.size:  # (sosfilt refuses an empty block)
-            # the band energies the folds read, kept beside the buffer while
-            # a fold may still come (each filter's state carried on)
-            for j, sos in enumerate(self._fold_bands):
-                y, self._band_zi[j] = signal.sosfilt(sos, dec, zi=self._band_zi[j])
-                self._band_e[j] = np.concatenate([self._band_e[j], (y * y).astype(np.float32)])
+        if self._band_e is not None:
+            self._add_band_energies(dec)
+
+    def _add_band_energies(self, dec: np.ndarray) -> None:
+        """Append the fold bands' energies of ``dec`` (each filter's state carried on)."""
+        if not dec.size:
+            return  # (sosfilt refuses an empty block)
+        for j, sos in enumerate(self._fold_bands):
+            y, self._band_zi[j] = signal.sosfilt(sos, dec, zi=self._band_zi[j])
+            self._band_e[j] = np.concatenate([self._band_e[j], (y * y).astype(np.float32)])
+
+    def _start_bands(self) -> None:
+        """Start the fold bands' energies, from the buffer's start, as the main template forms.
+
+        Before it no fold comes, so a recording whose main template forms
+        late (or never: noise, silence) is not filtered five times over
+        meanwhile.  The filters start at rest at the buffer's start; a fold
+        reads its energies from ``E + L`` (32 ms) later at the earliest.  The
+        filters' slowest pole (the 500-1000 Hz band's) decays by e in 1.2 ms,
+        so by then the start's transient has fallen under 3e-12 of its size,
+        far under the float32 energies' precision (6e-8): the fold sees what
+        filters run from the stream's start would have given.
+        """
+        self._bands_started = True
+        self._band_e = [np.zeros(0, dtype=np.float32) for _ in self._fold_bands]
+        self._add_band_energies(self.buf)
 
     def note_click(self, onset_in: int, *, accepted: bool = True) -> None:
         od = round(onset_in / self.q)
@@ -1480,6 +1503,8 @@ class _TemplateScan:
                    * self.mask)[:self.M // 2]
         slot[1] = self._peak_hz(h) if ring_hz is None else ring_hz
         slot[2] = h
+        if slot is self.slots[0] and not self._bands_started:
+            self._start_bands()
         # the floor estimator's value on noise alone, relative to the median
         # (white Gaussian noise, fixed seed: the same on every run)
         noise = np.random.default_rng(12345).standard_normal(

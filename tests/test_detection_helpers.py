@@ -435,3 +435,37 @@ def test_octave_about_keeps_one_plate_mode_and_drops_its_neighbours():
         tones = np.sin(2 * np.pi * fc * tt) + np.sin(2 * np.pi * f_off * tt)
         got = _octave_about(tones, fs, fc)
         assert amp(got, f_off) / amp(got, fc) == pytest.approx(want, abs=0.01)
+
+
+def test_fold_band_energies_started_late_are_those_of_filters_run_from_the_start():
+    # the fold bands are filtered only from the moment the main template
+    # forms, from the kept buffer's start with the filters at rest; what a
+    # fold reads (from E + L past that start) must be what the same filters
+    # run over the whole stream give.  Reference: scipy.signal.sosfilt over
+    # the whole decimated stream in one call
+    from scipy import signal
+
+    scan = _TemplateScan(48000.0, 2, 24000.0)
+    rng = np.random.default_rng(21)
+    fed = []
+    for size in [24000 * 7] * 6:  # 42 s of decimated noise with louder bursts
+        d = (0.01 * rng.standard_normal(size)).astype(np.float32)
+        d[rng.integers(0, size - 300, 20)[:, None] + np.arange(300)] *= 30.0
+        fed.append(d)
+        scan.feed(d)
+        scan.advance(scan.n * scan.q, final=False)  # (chunks with no template: given up)
+    assert scan._band_e is None  # no main template yet: no band filtered
+    assert scan.b0 > 24000  # the buffer no longer starts at the stream's start
+    scan._start_bands()
+    tail = (0.01 * rng.standard_normal(24000 * 3)).astype(np.float32)
+    fed.append(tail)
+    scan.feed(tail)
+    whole = np.concatenate(fed)
+    skip = scan.E + scan.L
+    for sos, got in zip(scan._fold_bands, scan._band_e):
+        ref = (signal.sosfilt(sos, whole) ** 2).astype(np.float32)[scan.b0:]
+        assert got.size == ref.size
+        np.testing.assert_allclose(got[skip:], ref[skip:], rtol=1e-6,
+                                   atol=1e-6 * float(ref.max()))
+        # (at rest at the start, the first samples differ: the check can fail)
+        assert not np.allclose(got[:8], ref[:8], rtol=1e-6, atol=1e-6 * float(ref.max()))
