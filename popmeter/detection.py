@@ -1175,7 +1175,8 @@ class _TemplateScan:
     before, is learnt from that group (median, when the interquartile range
     is 0.05 or less).  When no such group forms (second clicks too weak for
     the frame detector), the cycles are folded at fixed places in the
-    stream (once the main template has scanned to 10 s, then every 5 s, at
+    stream (once the main template has scanned to 10 s, past the chunks it
+    formed too late for, then every 5 s, at
     most 12 times, and no more once 200 cycles show no rise at all or a
     fold's template rings under 0.8 of the main click's ring: the room, not
     the diaphragm) and the template is made at the phase where their energy
@@ -2000,8 +2001,11 @@ class _TemplateScan:
             slot[3] += self.C
             # the second template, from examples and by folding, in stream
             # order: once the main template has scanned to a place, every
-            # click before it is known (so block sizes do not matter)
-            if slot is self.slots[0] and slot[0] is not None:
+            # click before it is known (so block sizes do not matter).  Not
+            # at a chunk the main template formed too late for: streamed,
+            # such chunks pass without it, and a fold there would spend one
+            # of the tries only when the audio came in one piece
+            if slot is self.slots[0] and slot[0] is not None and not late:
                 self._take_candidates(slot[3])
                 if (self.slots[1][0] is None and self._folds < self.fold_tries
                         and slot[3] >= self._next_fold):
