@@ -31,7 +31,9 @@ librosa.onset.onset_detect (default settings) on the same file; best of five
 after a warm-up run, in one process, with OMP/OpenBLAS/MKL/numba thread pools
 set to one thread (one core); the design's first steps alone (reading, the
 full-rate high-pass, the frame stage's STFT), whose sum is a floor for the
-whole analyze; both paths started as a user starts them (fresh processes,
+whole analyze; the whole analyze and librosa's path on two other kinds of
+recording (background alone, a one-click engine); both paths started as a
+user starts them (fresh processes,
 imports included: the ``popmeter analyze`` command line against a Python
 that imports librosa and runs the same two calls); and analyze_file once
 more in a fresh process with the libraries' default thread pools.
@@ -334,6 +336,7 @@ def speed(tmp: str, minutes: float) -> None:
         print(f"  {name:45s}: {min(ts):7.3f} s")
     print(f"  {'their sum (a floor for the whole analyze)':45s}: {floor:7.3f} s  "
           f"= {floor / b:.2f} x librosa's best")
+    kinds(tmp, dur)
     cold(path, dur)
     # what a user running `popmeter analyze` gets: the libraries' own thread
     # pools (no forced single thread), in a fresh process, best of 3
@@ -343,6 +346,43 @@ def speed(tmp: str, minutes: float) -> None:
     d = float(out[0])
     print(f"analyze_file, default thread pools (fresh)     : {d:7.3f} s  = {dur / d:7.0f}x real time")
     stages(path)
+
+
+def kinds(tmp: str, dur: float) -> None:
+    """The whole analyze on other kinds of recording of the same length, beside librosa's path.
+
+    The generator's background alone (an engine that never starts: a test
+    tank before the candle is lit), a one-click engine in a dry room and the
+    speed table's two-click engine with speech, splashes and hum.  Best of
+    3, interleaved, one process.
+    """
+    from popmeter.analysis import analyze_file
+
+    files = {}
+    for name, kw in (("background alone (an engine that never starts)", {"never_starts": True}),
+                     ("one-click engine, dry room, 20 dB", {"clicks_per_cycle": 1})):
+        sc = synth.RunScenario(duration_s=dur, click_to_noise_db=20.0, seed=5, **kw)
+        files[name] = synth.render(sc)[0][:, 0]
+    paths = {}
+    for i, (name, x) in enumerate(files.items()):
+        paths[name] = os.path.join(tmp, f"kind{i}.wav")
+        sf.write(paths[name], x, 48000, subtype="PCM_16")
+    paths["two-click engine, speech, splash, hum, 20 dB"] = os.path.join(tmp, "speed.wav")
+    times: dict[str, list[float]] = {name: [] for name in paths}
+    t_lib: dict[str, list[float]] = {name: [] for name in paths}
+    for _ in range(3):
+        for name, path in paths.items():
+            t0 = time.perf_counter()
+            analyze_file(path)
+            times[name].append(time.perf_counter() - t0)
+            t0 = time.perf_counter()
+            _librosa_path(path)
+            t_lib[name].append(time.perf_counter() - t0)
+    print(f"by kind of recording ({dur:.0f} s each, best of 3, interleaved):")
+    print(f"  {'recording':45s} {'analyze':>8s} {'x real':>7s} {'librosa':>8s} {'ratio':>6s}")
+    for name in paths:
+        a, b = min(times[name]), min(t_lib[name])
+        print(f"  {name:45s} {a:7.3f}s {dur / a:7.0f} {b:7.3f}s {a / b:6.2f}")
 
 
 _LIBROSA_CHILD = """
