@@ -1255,6 +1255,8 @@ class _TemplateScan:
         self.quick: list[int] = []
         self.examples: list[np.ndarray] = []
         self.example_onsets: list[int] = []
+        # second-family example onset -> its place in the cycle (_take_candidates)
+        self._example_phase: dict[int, float | None] = {}
         self.phase: float | None = None  # second click's delay / the period before
         self._is_main: dict[int, bool] = {}  # accepted onset -> like the main template
         # the same for onsets after the last ones asked, matched in advance (see
@@ -1387,8 +1389,20 @@ class _TemplateScan:
             self._candidates.append((od, ex))
 
     def _take_candidates(self, upto: int) -> None:
-        """Second-family candidates before ``upto`` (decimated): a template try every 8."""
+        """Second-family candidates before ``upto`` (decimated): a template try every 8.
+
+        Each example's place in its cycle (:meth:`_learn_phase`) is read as it
+        is taken, while the main clicks before it are surely kept: read when
+        the template is tried, it would depend on how much of the stream is
+        still kept then, which depends on how the audio was handed over.
+        """
         second = self.slots[1]
+        n_take = 0  # (those the loop below takes)
+        while n_take < len(self._candidates) and self._candidates[n_take][0] < upto:
+            n_take += 1
+        if n_take and second[0] is None:
+            ods = [od for od, _ in self._candidates[:n_take]]
+            self._example_phase.update(zip(ods, self._cycle_places(ods)))
         while self._candidates and self._candidates[0][0] < upto:
             od, ex = self._candidates.pop(0)
             if second[0] is not None:
@@ -1401,6 +1415,9 @@ class _TemplateScan:
                 elif len(self.examples) >= 2 * self.K:
                     self.examples = self.examples[self.K // 2:]
                     self.example_onsets = self.example_onsets[self.K // 2:]
+        if len(self._example_phase) > 2 * len(self.example_onsets) + 64:  # (forget the gone)
+            self._example_phase = {od: self._example_phase[od] for od in self.example_onsets
+                                   if od in self._example_phase}
 
     def _make_template(self, slot: list) -> bool:
         A, L = self.A, self.L
@@ -1901,22 +1918,30 @@ class _TemplateScan:
             peaks[j] = np.max(np.abs(raw)) if raw.size else 0.0
         return peaks
 
+    def _cycle_places(self, onsets: list[int]) -> list[float | None]:
+        """Per onset (sorted, decimated): its delay after the main click before it / the period before that.
+
+        The main clicks (:meth:`_mains`) from 1 s before the first onset; None
+        where there are not two of them before the onset or the period is
+        over 0.5 s.
+        """
+        mains = self._mains(onsets[0] - round(1.0 * self.fs_d), onsets[-1])
+        out: list[float | None] = []
+        for od in onsets:
+            j = int(np.searchsorted(mains, od)) - 1
+            period = mains[j] - mains[j - 1] if j >= 1 else 0
+            out.append(float((od - mains[j]) / period) if 0 < period <= 0.5 * self.fs_d
+                       else None)
+        return out
+
     def _learn_phase(self, onsets: list[int]) -> float | None:
         """Delay of the second clicks after the main click / the period before it.
 
-        From the second family's examples and the main clicks before them; None
-        unless 5 or more agree within an interquartile range of 0.05.
+        From the second family's examples (their places in the cycle, read as
+        they were taken: :meth:`_take_candidates`); None unless 5 or more
+        agree within an interquartile range of 0.05.
         """
-        if not onsets:
-            return None
-        mains = self._mains(min(onsets) - round(1.0 * self.fs_d), max(onsets))
-        r = []
-        for od in onsets:
-            j = int(np.searchsorted(mains, od)) - 1
-            if j >= 1:
-                period = mains[j] - mains[j - 1]
-                if 0 < period <= 0.5 * self.fs_d:
-                    r.append((od - mains[j]) / period)
+        r = [p for p in (self._example_phase.get(od) for od in onsets) if p is not None]
         if len(r) < 5:
             return None
         q1, q2, q3 = np.percentile(r, [25, 50, 75])
