@@ -1664,7 +1664,11 @@ class _TemplateScan:
             ref = prof[ref_i][np.arange(k.size), jr]
             ref_se = se[ref_i[np.arange(k.size), jr]]
             z = (prof[k] - ref) / np.sqrt(se[k] ** 2 + ref_se ** 2 + 1e-30)
-            return z, prof[k] / ref
+            # (a reference of exactly zero: digital silence in those bins of
+            # every cycle, a gated recording or a dropout; a rise out of it is
+            # infinite and counts, none is NaN and does not -- quietly)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                return z, prof[k] / ref
 
         # the whole band, and octaves of it: in a reverberant room or deep in
         # noise the second click may stand out only where it rings and the
