@@ -1923,13 +1923,14 @@ class _TemplateScan:
         return peaks
 
     def _cycle_places(self, onsets: list[int]) -> list[float | None]:
-        """Per onset (sorted, decimated): its delay after the main click before it / the period before that.
+        """Each onset's place in its cycle (decimated onsets; None where unknown).
 
-        The main clicks (:meth:`_mains`) from 1 s before the first onset; None
-        where there are not two of them before the onset or the period is
-        over 0.5 s.
+        The place is the delay after the main click before the onset over
+        the period before that click, from the main clicks (:meth:`_mains`)
+        from 1 s before the first onset; None where there are not two of them
+        before the onset or that period is over 0.5 s.
         """
-        mains = self._mains(onsets[0] - round(1.0 * self.fs_d), onsets[-1])
+        mains = self._mains(min(onsets) - round(1.0 * self.fs_d), max(onsets))
         out: list[float | None] = []
         for od in onsets:
             j = int(np.searchsorted(mains, od)) - 1
