@@ -1320,7 +1320,6 @@ class _TemplateScan:
         # until no fold is to come (see _start_bands)
         self._band_zi = [np.zeros((sos.shape[0], 2)) for sos in self._fold_bands]
         self._band_e: list[np.ndarray] | None = None
-        self._bands_started = False
 
     @property
     def templates(self) -> list[float]:
@@ -1353,7 +1352,6 @@ class _TemplateScan:
         far under the float32 energies' precision (6e-8): the fold sees what
         filters run from the stream's start would have given.
         """
-        self._bands_started = True
         self._band_e = [np.zeros(0, dtype=np.float32) for _ in self._fold_bands]
         self._add_band_energies(self.buf)
 
@@ -1397,14 +1395,15 @@ class _TemplateScan:
         still kept then, which depends on how the audio was handed over.
         """
         second = self.slots[1]
-        n_take = 0  # (those the loop below takes)
+        n_take = 0  # (in the order noted, up to the first at or past ``upto``)
         while n_take < len(self._candidates) and self._candidates[n_take][0] < upto:
             n_take += 1
-        if n_take and second[0] is None:
-            ods = [od for od, _ in self._candidates[:n_take]]
+        batch = self._candidates[:n_take]
+        del self._candidates[:n_take]
+        if batch and second[0] is None:
+            ods = [od for od, _ in batch]
             self._example_phase.update(zip(ods, self._cycle_places(ods)))
-        while self._candidates and self._candidates[0][0] < upto:
-            od, ex = self._candidates.pop(0)
+        for od, ex in batch:
             if second[0] is not None:
                 continue
             self.examples.append(ex)
@@ -1521,7 +1520,7 @@ class _TemplateScan:
                    * self.mask)[:self.M // 2]
         slot[1] = self._peak_hz(h) if ring_hz is None else ring_hz
         slot[2] = h
-        if slot is self.slots[0] and not self._bands_started:
+        if slot is self.slots[0]:  # (made once: see note_click)
             self._start_bands()
         # the floor estimator's value on noise alone, relative to the median
         # (white Gaussian noise, fixed seed: the same on every run)
