@@ -921,6 +921,7 @@ class ClickDetector:
         short_ok = (ring_snr_short >= self.min_ring_snr_db - 2.0).tolist()
         levels = level.tolist()
         clicks: list[Click] = []
+        notes: list[tuple[int, bool]] = []  # (onset, accepted) for the template scan
         for i, (c, onset) in enumerate(zip(cands, onsets.tolist())):
             if onset - self._last_onset < self._post:
                 continue  # the same click found twice
@@ -940,18 +941,18 @@ class ClickDetector:
                 self.rejected_times_s.append(onset / fs)
                 if (self.reject and ring is not None and quick[i] and (c.strong or short_ok[i])
                         and len(self._second_look) < 200000):
-                    if self._mf is not None:
-                        self._mf.note_click(onset, accepted=False)
+                    notes.append((onset, False))
                     self._second_look.append(Click(
                         time_s=onset / fs, sample=onset, level_dbfs=round(levels[i], 3),
                         strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
                 continue
             self._last_onset = onset
-            if self._mf is not None:
-                self._mf.note_click(onset)
+            notes.append((onset, True))
             self._bin_votes[c.band] += 1
             clicks.append(Click(time_s=onset / fs, sample=onset, level_dbfs=round(levels[i], 3),
                                 strength=round(c.z, 3), ring_hz=ring, decay_s=decays[i]))
+        if self._mf is not None:
+            self._mf.note_clicks(notes)
         return clicks
 
     def _features(self, y: np.ndarray, on: np.ndarray, onsets: np.ndarray) -> dict:
@@ -1355,36 +1356,62 @@ class _TemplateScan:
         self._band_e = [np.zeros(0, dtype=np.float32) for _ in self._fold_bands]
         self._add_band_energies(self.buf)
 
-    def note_click(self, onset_in: int, *, accepted: bool = True) -> None:
-        od = round(onset_in / self.q)
+    def note_clicks(self, notes: list[tuple[int, bool]]) -> None:
+        """Note the detector's clicks of one batch, in stream order.
+
+        ``notes``: (onset in input samples, accepted) per click; not accepted
+        are the rejected candidates with a click's quick attack and a ring.
+        Until the main template forms, the accepted clicks' windows are its
+        examples; then each click unlike it (normalised correlation under
+        0.55 at every shift within +-``A``) is a candidate for the second
+        family, until that forms.  The likeness of the batch's clicks is
+        computed in one go (:meth:`_unlike_main`): the main template, made
+        once, is the same for every click after it forms.
+        """
         main, second = self.slots
-        if accepted:
-            self.onsets.append(od)
-        else:
-            self.quick.append(od)
-            if main[0] is None:
-                return
-        if second[0] is not None:
-            return
-        a = od - self.P - self.A - self.b0
-        if a < 0 or a + self.L + 2 * self.A > self.buf.size:
-            return
-        ex = self.buf[a:a + self.L + 2 * self.A].astype(np.float64)
-        if main[0] is None:
+        width = self.L + 2 * self.A
+        after: list[tuple[int, np.ndarray]] = []  # (onset, window) after the main formed
+        for onset_in, accepted in notes:
+            od = round(onset_in / self.q)
+            if accepted:
+                self.onsets.append(od)
+            else:
+                self.quick.append(od)
+                if main[0] is None:
+                    continue
+            if second[0] is not None:
+                continue
+            a = od - self.P - self.A - self.b0
+            if a < 0 or a + width > self.buf.size:
+                continue
+            ex = self.buf[a:a + width].astype(np.float64)
+            if main[0] is not None:
+                after.append((od, ex))
+                continue
             self.examples.append(ex)
             self.example_onsets.append(od)
             if len(self.examples) >= self.K:
                 if self._make_template(main):
                     self._main_formed_at = od
                 self.examples, self.example_onsets = [], []
-            return
-        # a candidate for the second family: unlike the main template (taken
-        # up in :meth:`advance`, in stream order with the folds)
-        e = ex - ex.mean()
-        c = np.correlate(e, main[2], "valid") / (np.sqrt(np.convolve(
-            e * e, np.ones(self.L), "valid")) + 1e-20)
-        if float(np.max(np.abs(c))) < 0.55:
-            self._candidates.append((od, ex))
+        if after:
+            unlike = self._unlike_main(np.array([ex for _, ex in after]))
+            # (taken up in :meth:`advance`, in stream order with the folds)
+            self._candidates.extend(item for item, u in zip(after, unlike.tolist()) if u)
+
+    def _unlike_main(self, ex: np.ndarray) -> np.ndarray:
+        """Whether each row of ``ex`` (``L + 2A`` samples) correlates under 0.55 with the main template.
+
+        The normalised correlation at every shift, each row's mean removed
+        (one mean over the row): the product with the template over the
+        energy of the same ``L`` samples.
+        """
+        e = ex - ex.mean(axis=1, keepdims=True)
+        win = _windows(e, self.L)  # (rows, shifts, L)
+        num = win @ self.slots[0][2]
+        energy = _windows(e * e, self.L).sum(axis=2)
+        c = num / (np.sqrt(energy) + 1e-20)
+        return np.abs(c).max(axis=1) < 0.55
 
     def _take_candidates(self, upto: int) -> None:
         """Second-family candidates before ``upto`` (decimated): a template try every 8.
@@ -1520,7 +1547,7 @@ class _TemplateScan:
                    * self.mask)[:self.M // 2]
         slot[1] = self._peak_hz(h) if ring_hz is None else ring_hz
         slot[2] = h
-        if slot is self.slots[0]:  # (made once: see note_click)
+        if slot is self.slots[0]:  # (made once: see note_clicks)
             self._start_bands()
         # the floor estimator's value on noise alone, relative to the median
         # (white Gaussian noise, fixed seed: the same on every run)

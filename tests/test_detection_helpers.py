@@ -469,3 +469,35 @@ def test_fold_band_energies_started_late_are_those_of_filters_run_from_the_start
                                    atol=1e-6 * float(ref.max()))
         # (at rest at the start, the first samples differ: the check can fail)
         assert not np.allclose(got[:8], ref[:8], rtol=1e-6, atol=1e-6 * float(ref.max()))
+
+
+def test_unlike_main_equals_numpy_correlate_one_window_at_a_time():
+    # the batched likeness test of the second family's candidates against the
+    # per-click form (reference: numpy.correlate and numpy.convolve, one
+    # window at a time): each window's mean removed, the correlation at every
+    # shift over the energy of the same L samples, unlike under 0.55
+    scan = _TemplateScan(48000.0, 2, 24000.0)
+    L, A = scan.L, scan.A
+    rng = np.random.default_rng(7)
+    t = np.arange(L) / 24000.0
+    h = np.exp(-t / 0.003) * np.sin(2 * np.pi * 2500.0 * t)
+    h -= h.mean()
+    h /= np.linalg.norm(h)
+    scan.slots[0][2] = h
+    rows = []
+    for i in range(40):  # the template at various shifts and noise levels, and noise alone
+        w = 0.05 * rng.standard_normal(L + 2 * A)
+        if i % 4:
+            s = int(rng.integers(0, 2 * A + 1))
+            w[s:s + L] += (i % 7) * 0.05 * h / np.abs(h).max()
+        rows.append(w + 0.3)  # (an offset: the mean is removed)
+    ex = np.array(rows)
+    got = scan._unlike_main(ex)
+    ref = []
+    for w in ex:
+        e = w - w.mean()
+        c = np.correlate(e, h, "valid") / (np.sqrt(np.convolve(e * e, np.ones(L), "valid"))
+                                           + 1e-20)
+        ref.append(float(np.max(np.abs(c))) < 0.55)
+    assert got.tolist() == ref
+    assert 5 < sum(ref) < 35  # both answers occur: the check can fail
