@@ -319,6 +319,26 @@ def test_generator_two_click_engine_decided_and_labelled():
     assert agree >= 0.95
 
 
+def test_a_two_click_decision_on_few_second_clicks_is_flagged():
+    # a one-click engine in a reverberant room (rt60 0.5 s, 20 dB), one of
+    # the decisions the detector still gets wrong: the room's answer passes
+    # for a second click in 15 % of the cycles; the result says so. A
+    # two-click engine's decision carries no such warning.
+    sc = synth.RunScenario(duration_s=60.0, click_to_noise_db=20.0, seed=6, clicks_per_cycle=1,
+                           reverb_rt60_s=0.5)
+    x, _truth = synth.render(sc)
+    res = detect_clicks(x[:, 0], sc.sample_rate_hz)
+    assert res.clicks_per_cycle == 2  # (wrong; should this fail, the case is solved: pick another)
+    flagged = [w for w in res.warnings if "second click was found in only" in w]
+    assert len(flagged) == 1 and "reverberant" in flagged[0]
+    forced = detect_clicks(x[:, 0], sc.sample_rate_hz, clicks_per_cycle=1)
+    assert not any("second click was found in only" in w for w in forced.warnings)
+    x2, _truth2, fs2 = _render(click_to_noise_db=30.0, seed=6, clicks_per_cycle=2)
+    res2 = detect_clicks(x2, fs2)
+    assert res2.clicks_per_cycle == 2
+    assert not any("second click was found in only" in w for w in res2.warnings)
+
+
 @pytest.mark.parametrize("kind", ["match", "speech"])
 def test_match_strike_or_speech_alone_gives_no_click(kind):
     for seed in (1, 2, 3):
