@@ -1627,7 +1627,16 @@ class _TemplateScan:
         times), so the result does not depend on block sizes.
         """
         fs = self.fs_d
-        lo = max(self.b0 + self.E + self.L, upto - round(self.fold_window_s * fs))
+        # the earliest audio a fold reads is the same however the audio came:
+        # what a stream still keeps as the main template forms.  The chunks
+        # its last example came too late for (see advance) have been given
+        # up by then, their audio dropped, from E + P + C before the first
+        # chunk kept; given the whole array at once, more is kept, which a
+        # fold must not read.  (From E + L past where the stream's audio
+        # starts: the fold bands' filters start there, see _start_bands.)
+        first = max(0, -(-(self._main_formed_at - self.C - self.lookback) // self.C) * self.C)
+        lo = max(self.b0 + self.E + self.L, first - self.P - self.C + self.L,
+                 upto - round(self.fold_window_s * fs))
         # every accepted click (in noise a main click's correlation with the
         # template is too uncertain to sort them) and every click the main
         # template found: the period test below drops the intervals a second
@@ -2057,9 +2066,10 @@ class _TemplateScan:
             # lies more than the look-back past the chunk's end.  Streamed,
             # such a chunk is given up unless the template forms within the
             # same call; placing the formation in the stream makes the
-            # chunks scanned the same whatever the calls)
-            late = (slot is self.slots[0]
-                    and slot[3] + self.C + self.lookback < self._main_formed_at)
+            # chunks scanned the same whatever the calls.  The second
+            # template's chunks too: streamed, they pass at the same pace
+            # until the main template forms)
+            late = slot[3] + self.C + self.lookback < self._main_formed_at
             if slot[0] is not None and not late:
                 self._scan(slot[3], next(i for i, sl in enumerate(self.slots) if sl is slot))
             slot[3] += self.C

@@ -530,6 +530,30 @@ def test_chunks_a_late_main_template_scans_do_not_depend_on_the_calls():
     assert [c.sample for c in streamed.clicks] == whole
 
 
+def test_a_late_main_template_folds_and_second_scans_do_not_depend_on_the_calls():
+    # a two-click engine at 7.4 Hz, 9.1 dB, 96 kHz (80 s): the main template
+    # formed only from clicks about 57 s in.  Handed the whole array, the
+    # detector still kept the audio from the start: the folds caught up
+    # after it read cycles from 0 s, where streamed they read from about
+    # 24 s (what a stream still keeps then), so a different fold made the
+    # second template; and that template scanned the chunks before 24 s,
+    # which a stream had given up.  619 clicks whole against 632 in blocks
+    # of 6658 samples (a random search found it).  Now the fold reads from
+    # where a stream's audio starts and the second template skips the
+    # chunks the main one formed too late for: 634 every way.
+    sc = synth.RunScenario(
+        seed=984250, sample_rate_hz=96000, heating_s=4.641327436798066,
+        duration_s=80.30325492932386, steady_rate_hz=7.380282595559868, clicks_per_cycle=2,
+        click_to_noise_db=9.077436783231654)
+    x, _truth = synth.render(sc)
+    x = x[:, 0]
+    fs = sc.sample_rate_hz
+    whole = [c.sample for c in detect_clicks(x, fs).clicks]
+    assert len(whole) >= 600
+    streamed = detect_clicks_in_blocks([x[i:i + 6658] for i in range(0, x.size, 6658)], fs)
+    assert [c.sample for c in streamed.clicks] == whole
+
+
 def test_folds_do_not_depend_on_the_calls_when_the_engine_starts_late():
     # 50 s of background noise, then a one-click engine in a reverberant
     # room (20 dB, 45 s): the main template formed only about 60 s in.
