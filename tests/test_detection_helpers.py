@@ -15,6 +15,7 @@ from popmeter.detection import (
     _percentile,
     _row_dots,
     _rows,
+    _sign_test_p,
     _TemplateScan,
     _windows,
     _with_neighbours,
@@ -501,3 +502,14 @@ def test_unlike_main_equals_numpy_correlate_one_window_at_a_time():
         ref.append(float(np.max(np.abs(c))) < 0.55)
     assert got.tolist() == ref
     assert 5 < sum(ref) < 35  # both answers occur: the check can fail
+
+
+@pytest.mark.parametrize("wins, n", [(0, 0), (0, 5), (9, 11), (12, 12), (17, 22), (12, 16),
+                                     (74, 134), (30, 70)])
+def test_sign_test_equals_scipy_binomtest(wins, n):
+    # reference: scipy.stats.binomtest, one-sided ("greater"), p = 1/2
+    from scipy.stats import binomtest
+
+    got = _sign_test_p(wins, n)
+    ref = 1.0 if n == 0 else binomtest(wins, n, 0.5, alternative="greater").pvalue
+    assert got == pytest.approx(ref, rel=1e-12)
