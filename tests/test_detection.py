@@ -259,6 +259,21 @@ def _render(**kw):
     return x[:, 0], truth, sc.sample_rate_hz
 
 
+def _render_full(**kw):
+    """A generated recording with the scenario's own defaults (no shortening)."""
+    sc = synth.RunScenario(**kw)
+    x, truth = synth.render(sc)
+    return x[:, 0], truth, sc.sample_rate_hz
+
+
+def _whole_and_in_blocks(x, fs, block):
+    """The clicks' samples of the whole array, checked equal to those found block by block."""
+    whole = [c.sample for c in detect_clicks(x, fs).clicks]
+    streamed = detect_clicks_in_blocks([x[i:i + block] for i in range(0, x.size, block)], fs)
+    assert [c.sample for c in streamed.clicks] == whole
+    return whole
+
+
 def _score(res, truth):
     ref = np.array([c["time_s"] for c in truth["clicks"]])
     est = np.array([c.time_s for c in res.clicks])
@@ -328,21 +343,16 @@ def test_a_room_answer_found_by_folding_keeps_its_delay_through_start_up_and_fad
     # place in the cycle (12 votes to 0): the room, so one click per cycle
     # (F 0.75 before, 0.98 now).  A two-click engine in the same room keeps
     # its second clicks (votes 31:9 for their place in the cycle).
-    ring = (1142.7, 2378.2, 3901.3, 4448.7)
-    sc = synth.RunScenario(duration_s=60.0, click_to_noise_db=20.0, seed=1, clicks_per_cycle=1,
-                           reverb_rt60_s=0.5, ring_modes_hz=ring)
-    x, truth = synth.render(sc)
-    res = detect_clicks(x[:, 0], sc.sample_rate_hz)
+    room = {"duration_s": 60.0, "click_to_noise_db": 20.0, "reverb_rt60_s": 0.5,
+            "ring_modes_hz": (1142.7, 2378.2, 3901.3, 4448.7)}
+    x, truth, fs = _render_full(seed=1, clicks_per_cycle=1, **room)
+    res = detect_clicks(x, fs)
     assert res.clicks_per_cycle == 1
-    f, _err, _ring = _score(res, truth)
-    assert f >= 0.95
-    sc2 = synth.RunScenario(duration_s=60.0, click_to_noise_db=20.0, seed=2, clicks_per_cycle=2,
-                            reverb_rt60_s=0.5, ring_modes_hz=ring, steady_rate_hz=16.0)
-    x2, truth2 = synth.render(sc2)
-    res2 = detect_clicks(x2[:, 0], sc2.sample_rate_hz)
+    assert _score(res, truth)[0] >= 0.95
+    x2, truth2, fs2 = _render_full(seed=2, clicks_per_cycle=2, steady_rate_hz=16.0, **room)
+    res2 = detect_clicks(x2, fs2)
     assert res2.clicks_per_cycle == 2
-    f2, _err2, _ring2 = _score(res2, truth2)
-    assert f2 >= 0.93
+    assert _score(res2, truth2)[0] >= 0.93
 
 
 def test_a_two_click_decision_on_few_second_clicks_is_flagged():
@@ -350,14 +360,13 @@ def test_a_two_click_decision_on_few_second_clicks_is_flagged():
     # the decisions the detector still gets wrong: the room's answer passes
     # for a second click in 15 % of the cycles; the result says so. A
     # two-click engine's decision carries no such warning.
-    sc = synth.RunScenario(duration_s=60.0, click_to_noise_db=20.0, seed=6, clicks_per_cycle=1,
-                           reverb_rt60_s=0.5)
-    x, _truth = synth.render(sc)
-    res = detect_clicks(x[:, 0], sc.sample_rate_hz)
+    x, _truth, fs = _render_full(duration_s=60.0, click_to_noise_db=20.0, seed=6,
+                                 clicks_per_cycle=1, reverb_rt60_s=0.5)
+    res = detect_clicks(x, fs)
     assert res.clicks_per_cycle == 2  # (wrong; should this fail, the case is solved: pick another)
     flagged = [w for w in res.warnings if "second click was found in only" in w]
     assert len(flagged) == 1 and "reverberant" in flagged[0]
-    forced = detect_clicks(x[:, 0], sc.sample_rate_hz, clicks_per_cycle=1)
+    forced = detect_clicks(x, fs, clicks_per_cycle=1)
     assert not any("second click was found in only" in w for w in forced.warnings)
     x2, _truth2, fs2 = _render(click_to_noise_db=30.0, seed=6, clicks_per_cycle=2)
     res2 = detect_clicks(x2, fs2)
@@ -542,18 +551,12 @@ def test_chunks_a_late_main_template_scans_do_not_depend_on_the_calls():
     # 463 clicks against 461 in blocks (two matched-filter finds before the
     # first accepted click).  Now where the template formed in the stream
     # decides, and every way of feeding the detector gives 460.
-    sc = synth.RunScenario(
+    x, _truth, fs = _render_full(
         seed=986863, sample_rate_hz=96000, duration_s=74.45587300614187,
         steady_rate_hz=38.98543750685275, clicks_per_cycle=1,
         click_to_noise_db=8.676028698567874, stalls=2, missed_pop_prob=0.04535173647148664,
         jitter_pct=1.5811919673071064, distractors=("knock",))
-    x, _truth = synth.render(sc)
-    x = x[:, 0]
-    fs = sc.sample_rate_hz
-    whole = [c.sample for c in detect_clicks(x, fs).clicks]
-    assert len(whole) >= 450
-    streamed = detect_clicks_in_blocks([x[i:i + 4096] for i in range(0, x.size, 4096)], fs)
-    assert [c.sample for c in streamed.clicks] == whole
+    assert len(_whole_and_in_blocks(x, fs, 4096)) >= 450
 
 
 def test_a_late_main_template_folds_and_second_scans_do_not_depend_on_the_calls():
@@ -567,17 +570,11 @@ def test_a_late_main_template_folds_and_second_scans_do_not_depend_on_the_calls(
     # of 6658 samples (a random search found it).  Now the fold reads from
     # where a stream's audio starts and the second template skips the
     # chunks the main one formed too late for: 634 every way.
-    sc = synth.RunScenario(
+    x, _truth, fs = _render_full(
         seed=984250, sample_rate_hz=96000, heating_s=4.641327436798066,
         duration_s=80.30325492932386, steady_rate_hz=7.380282595559868, clicks_per_cycle=2,
         click_to_noise_db=9.077436783231654)
-    x, _truth = synth.render(sc)
-    x = x[:, 0]
-    fs = sc.sample_rate_hz
-    whole = [c.sample for c in detect_clicks(x, fs).clicks]
-    assert len(whole) >= 600
-    streamed = detect_clicks_in_blocks([x[i:i + 6658] for i in range(0, x.size, 6658)], fs)
-    assert [c.sample for c in streamed.clicks] == whole
+    assert len(_whole_and_in_blocks(x, fs, 6658)) >= 600
 
 
 def test_folds_do_not_depend_on_the_calls_when_the_engine_starts_late():
