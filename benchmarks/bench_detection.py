@@ -351,8 +351,9 @@ def speed(tmp: str, minutes: float) -> None:
           f"median {per_round[2]:.2f}, {per_round[0]:.2f}-{per_round[-1]:.2f})")
     # (in a child process: its 1 GB of spectrogram would leave this
     # process's heap slower for the other paths)
-    e = float(subprocess.run([sys.executable, "-c", _FINE_CHILD, path], capture_output=True,
-                             text=True, check=True).stdout.split()[-1])
+    here = os.path.dirname(os.path.abspath(__file__))
+    e = float(subprocess.run([sys.executable, "-c", _FINE_CHILD, path, here],
+                             capture_output=True, text=True, check=True).stdout.split()[-1])
     print(f"librosa at the issue's 2 ms hop (native rate)  : {e:7.3f} s  = {dur / e:7.0f}x real time"
           f"  (analyze / this: {w / e:.2f}; fresh process, best of 3)")
     print("the design's first steps alone, each over the whole file (best of 5, same rounds):")
@@ -490,7 +491,7 @@ def stages(path: str) -> None:
 
 _FINE_CHILD = """
 import sys, time
-sys.path.insert(0, {bench!r})
+sys.path.insert(0, sys.argv[2])
 import bench_detection
 bench_detection._librosa_fine_path(sys.argv[1])
 times = []
@@ -499,7 +500,7 @@ for _ in range(3):
     bench_detection._librosa_fine_path(sys.argv[1])
     times.append(time.perf_counter() - t0)
 print(min(times))
-""".format(bench=os.path.dirname(os.path.abspath(__file__)))
+"""
 
 _DEFAULT_THREADS_CHILD = """
 import sys, time
