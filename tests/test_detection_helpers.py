@@ -505,7 +505,7 @@ def test_unlike_main_equals_numpy_correlate_one_window_at_a_time():
 
 
 @pytest.mark.parametrize("wins, n", [(0, 0), (0, 5), (9, 11), (12, 12), (17, 22), (12, 16),
-                                     (74, 134), (30, 70)])
+                                     (74, 134), (30, 70), (600, 1100), (1500, 2600)])
 def test_sign_test_equals_scipy_binomtest(wins, n):
     # reference: scipy.stats.binomtest, one-sided ("greater"), p = 1/2
     from scipy.stats import binomtest
