@@ -1267,9 +1267,10 @@ class _TemplateScan:
         # second-family example onset -> its place in the cycle (_take_candidates)
         self._example_phase: dict[int, float | None] = {}
         self.phase: float | None = None  # second click's delay / the period before
-        # the fold's median local period (decimated samples), and what the
-        # bounded searches found in cycles far from it (see _vote_delay):
-        # [at the second click's place in the cycle, at its fixed delay]
+        # the fold's median local period (decimated samples; set with the
+        # folded template), and what the bounded searches found in cycles
+        # far from it (see _vote_delay): [at the second click's place in the
+        # cycle, at its fixed delay]
         self.phase_period: float | None = None
         self.delay_votes = [0, 0]
         self._is_main: dict[int, bool] = {}  # accepted onset -> like the main template
@@ -1339,6 +1340,15 @@ class _TemplateScan:
     def templates(self) -> list[float]:
         """Ring frequency (Hz) of each template formed so far."""
         return [s[1] for s in self.slots if s[0] is not None]
+
+    def _first_chunk(self) -> int:
+        """The first chunk (decimated start) the main template did not form too late for.
+
+        A chunk waits for a template at most the look-back past its end, so
+        a chunk starting before this one is given up as if the template had
+        never formed (:meth:`advance`); chunks start at multiples of ``C``.
+        """
+        return max(0, -(-(self._main_formed_at - self.C - self.lookback) // self.C) * self.C)
 
     def feed(self, dec: np.ndarray) -> None:
         self.buf = np.concatenate([self.buf, dec])
@@ -1639,8 +1649,7 @@ class _TemplateScan:
         # chunk kept; given the whole array at once, more is kept, which a
         # fold must not read.  (From E + L past where the stream's audio
         # starts: the fold bands' filters start there, see _start_bands.)
-        first = max(0, -(-(self._main_formed_at - self.C - self.lookback) // self.C) * self.C)
-        lo = max(self.b0 + self.E + self.L, first - self.P - self.C + self.L,
+        lo = max(self.b0 + self.E + self.L, self._first_chunk() - self.P - self.C + self.L,
                  upto - round(self.fold_window_s * fs))
         # every accepted click (in noise a main click's correlation with the
         # template is too uncertain to sort them) and every click the main
@@ -2075,7 +2084,7 @@ class _TemplateScan:
             # chunks scanned the same whatever the calls.  The second
             # template's chunks too: streamed, they pass at the same pace
             # until the main template forms)
-            late = slot[3] + self.C + self.lookback < self._main_formed_at
+            late = slot[3] < self._first_chunk()
             if slot[0] is not None and not late:
                 self._scan(slot[3], next(i for i, sl in enumerate(self.slots) if sl is slot))
             slot[3] += self.C
@@ -2334,24 +2343,22 @@ class _TemplateScan:
         delay follows the period); the room's answer to each click keeps its
         delay in seconds.  At the fold's period (``phase_period``) the two
         coincide; where the period is more than 10 % longer or shorter
-        (start-up, fade) they part.  A folded template's finds come almost all from the
-        bounded search at the place (:meth:`_expected`), which cannot tell
-        the two apart, so here each cycle whose local ``period`` lies more
-        than 10 % from the fold's, from main click ``m0`` to the next
-        (``cycle`` samples later, within 20 % of ``period``: no main click
-        missed), is searched at both places, ``phase`` x ``period`` (as the
-        search at the place does) and ``phase`` x the fold's period after
-        ``m0`` (all decimated samples), each within +-(1 ms + 3 % of that
-        delay), where the two do not meet (:meth:`_window_peaks`).  Of the two windows'
-        peaks that pass, the one rising more over the envelope 2-4 ms before
-        it is a vote for its place: in a reverberant room the room's answer
-        to every click passes the bounded search's threshold at either place
-        alone, and it is louder at the earlier one.  Read by
-        :meth:`echo_delay_s`.
+        (start-up, fade) they part.  A folded template's finds come almost
+        all from the bounded search at the place (:meth:`_expected`), which
+        cannot tell the two apart, so here each cycle whose local
+        ``period`` lies more than 10 % from the fold's, from main click
+        ``m0`` to the next (``cycle`` samples later, within 20 % of
+        ``period``: no main click missed), is searched at both places,
+        ``phase`` x ``period`` (as the search at the place does) and
+        ``phase`` x the fold's period after ``m0`` (all decimated samples),
+        each within +-(1 ms + 3 % of that delay), where the two do not meet
+        (:meth:`_window_peaks`).  Of the two windows' peaks that pass, the
+        one rising more over the envelope 2-4 ms before it is a vote for its
+        place: in a reverberant room the room's answer to every click passes
+        the bounded search's threshold at either place alone, and it is
+        louder at the earlier one.  Read by :meth:`echo_delay_s`.
         """
         ref = self.phase_period
-        if not ref:
-            return
         with np.errstate(invalid="ignore"):  # (NaN: the last click's cycle, unknown)
             far = (np.abs(cycle / period - 1.0) <= 0.2) & (np.abs(period / ref - 1.0) > 0.10)
         d_place = self.phase * period[far]
@@ -2389,7 +2396,7 @@ class _TemplateScan:
         two-click engines 74:60 (13 %) at most.)
         """
         at_place, at_delay = self.delay_votes
-        if not (self.folded and self.phase_period):
+        if not self.folded:
             return None
         if _sign_test_p(at_delay, at_place + at_delay) < 0.01:
             return self.phase * self.phase_period / self.fs_d
