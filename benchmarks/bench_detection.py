@@ -30,7 +30,9 @@ matched-filter pass) on a 48 kHz mono WAV file, side by side with librosa.load +
 librosa.onset.onset_detect (default settings) on the same file, and, for
 reference, librosa's onset detector at the issue's 2 ms hop; best of five
 after a warm-up run, in one process, with OMP/OpenBLAS/MKL/numba thread pools
-set to one thread (one core); the design's first steps alone (reading, the
+set to one thread (one core); the whole analyze and librosa's path once more
+in a fresh process whose allocator keeps freed memory (librosa's time then
+stops swinging with page faults); the design's first steps alone (reading, the
 full-rate high-pass, the frame stage's STFT), whose sum is a floor for the
 whole analyze; the whole analyze and librosa's path on two other kinds of
 recording (background alone, a one-click engine); both paths started as a
@@ -356,6 +358,11 @@ def speed(tmp: str, minutes: float) -> None:
                              capture_output=True, text=True, check=True).stdout.split()[-1])
     print(f"librosa at the issue's 2 ms hop (native rate)  : {e:7.3f} s  = {dur / e:7.0f}x real time"
           f"  (analyze / this: {w / e:.2f}; fresh process, best of 3)")
+    ka, kl = (float(v) for v in subprocess.run(
+        [sys.executable, "-c", _KEPT_HEAP_CHILD, path, here], env={**os.environ, **_KEPT_HEAP_ENV},
+        capture_output=True, text=True, check=True).stdout.split())
+    print(f"the same two, freed memory kept by the allocator (fresh process, best of 6, "
+          f"alternating):\n  analyze {ka:.3f} s, librosa {kl:.3f} s, ratio {ka / kl:.2f}")
     print("the design's first steps alone, each over the whole file (best of 5, same rounds):")
     floor = 0.0
     for name, ts in t_steps.items():
@@ -501,6 +508,32 @@ for _ in range(3):
     times.append(time.perf_counter() - t0)
 print(min(times))
 """
+
+_KEPT_HEAP_CHILD = """
+import sys, time
+sys.path.insert(0, sys.argv[2])
+import bench_detection
+from popmeter.analysis import analyze_file
+paths = {"analyze": lambda: analyze_file(sys.argv[1]),
+         "librosa": lambda: bench_detection._librosa_path(sys.argv[1])}
+for run in paths.values():
+    run()
+times = {name: [] for name in paths}
+for k in range(6):  # (each path first in every other round)
+    for name in (list(paths) if k % 2 == 0 else list(paths)[::-1]):
+        t0 = time.perf_counter()
+        paths[name]()
+        times[name].append(time.perf_counter() - t0)
+print(min(times["analyze"]), min(times["librosa"]))
+"""
+
+# glibc's malloc keeping freed memory (no arrays handed back to the system
+# and faulted in again): librosa's path allocates some 100 MB arrays per
+# call, and on this machine the page faults of getting them back from the
+# system swung its time between 0.2 and 1.7 s in one process (glibc's
+# tunables, documented in mallopt(3))
+_KEPT_HEAP_ENV = {"MALLOC_MMAP_THRESHOLD_": "4294967296", "MALLOC_TRIM_THRESHOLD_": "4294967296",
+                  "MALLOC_TOP_PAD_": "536870912"}
 
 _DEFAULT_THREADS_CHILD = """
 import sys, time
