@@ -17,6 +17,7 @@ from popmeter.detection import (
     _rows,
     _sign_test_p,
     _TemplateScan,
+    _unseen,
     _windows,
     _with_neighbours,
 )
@@ -513,3 +514,16 @@ def test_sign_test_equals_scipy_binomtest(wins, n):
     got = _sign_test_p(wins, n)
     ref = 1.0 if n == 0 else binomtest(wins, n, 0.5, alternative="greater").pvalue
     assert got == pytest.approx(ref, rel=1e-12)
+
+
+def test_unseen_equals_the_distance_to_every_time():
+    # reference: the smallest distance to every one of the times, by brute force
+    rng = np.random.default_rng(11)
+    for n_t, n_f in [(0, 5), (1, 7), (50, 200), (300, 40)]:
+        times = np.sort(rng.uniform(0.0, 3.0, n_t))
+        found = rng.uniform(-0.1, 3.1, n_f)
+        if n_t:  # (a quarter of them close to a time, on either side of 10 ms)
+            k = n_f // 4
+            found[:k] = rng.choice(times, k) + rng.uniform(-0.012, 0.012, k)
+        expected = np.array([n_t == 0 or np.min(np.abs(times - t)) >= 0.010 for t in found])
+        assert np.array_equal(_unseen(times, found), expected)
