@@ -112,7 +112,7 @@ from __future__ import annotations
 import bisect
 import math
 import statistics
-from collections.abc import Callable, Iterable
+from collections.abc import Callable, Iterable, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -2870,7 +2870,8 @@ def _one_per_cycle(clicks: list[Click], *, share: float = 0.5, quieter_db: float
 
 
 def reject_atypical(clicks: list[Click], *, tolerance: float = 0.08,
-                    min_share: float = 0.05) -> tuple[list[Click], list[Click]]:
+                    min_share: float = 0.05, known_hz: Sequence[float] = ()
+                    ) -> tuple[list[Click], list[Click]]:
     """Split clicks into those that ring like the recording's own clicks and the rest.
 
     The "families" are the ring frequencies shared by at least ``min_share``
@@ -2886,6 +2887,11 @@ def reject_atypical(clicks: list[Click], *, tolerance: float = 0.08,
         Relative ring-frequency tolerance; default 0.08 (8 %).
     min_share : float
         Least share of the clicks that makes a family; default 0.05.
+    known_hz : sequence of float
+        Ring frequencies (Hz) of families known otherwise, however few of
+        ``clicks`` ring there; default none.  The detector passes its
+        matched-filter templates' rings: each template is the average of
+        the recording's own clicks.
 
     Returns
     -------
@@ -2908,6 +2914,7 @@ def reject_atypical(clicks: list[Click], *, tolerance: float = 0.08,
                 sums[j] >= (sums[j + 1] if j + 1 < len(sums) else 0):
             inside = lr[(lr >= edges[j]) & (lr < edges[j + 2])]
             centres.append(float(np.median(inside)))
+    centres += [math.log(f) for f in known_hz]
     if not centres:
         return list(clicks), []
     typical = ~ok
@@ -3658,7 +3665,12 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
             atypical: bool = True) -> DetectionResult:
     warnings: list[str] = []
     if atypical:
-        kept, dropped = reject_atypical(clicks)
+        # (the matched filter's templates are families of the recording's own
+        # clicks even where the frame stage accepted few of them: a two-click
+        # engine's second clicks in a reverberant room, found mostly by the
+        # filter, whose rare accepted ones were dropped as atypical)
+        kept, dropped = reject_atypical(
+            clicks, known_hz=det._mf.templates if det._mf is not None else ())
     else:
         kept, dropped = list(clicks), []
     rejected_times = sorted(list(rejected_times) + [c.time_s for c in dropped])
