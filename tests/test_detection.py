@@ -182,6 +182,24 @@ def test_clipped_recording_keeps_its_clicks_with_a_warning():
     assert any("clipping" in w for w in res.warnings)
 
 
+def test_clicks_clipped_to_one_level_put_the_clicks_per_cycle_decision_in_doubt():
+    # a two-click engine with the input gain 20 dB too high: every click
+    # reaches full scale, the families' levels cannot be compared, and this
+    # run is decided one-click (its rate nearly doubled); the warning says
+    # so.  3 dB over: a quarter of the clicks clip, the plain warning.
+    x, _truth, fs = _render_full(seed=2, duration_s=30.0, clicks_per_cycle=2,
+                                 click_to_noise_db=25.0)
+    peak = float(np.max(np.abs(x)))
+    loud = np.clip(x * np.float32(10.0 / peak), -1.0, 1.0)
+    res = detect_clicks(loud, fs)
+    assert any("clipping" in w and "per cycle may be wrong" in w and "--clicks-per-cycle" in w
+               for w in res.warnings)
+    mild = np.clip(x * np.float32(10 ** (3 / 20) / peak), -1.0, 1.0)
+    res = detect_clicks(mild, fs)
+    clipping = [w for w in res.warnings if "clipping" in w]
+    assert len(clipping) == 1 and "--clicks-per-cycle" not in clipping[0]
+
+
 def test_a_recording_pinned_to_the_rail_between_clicks_is_analysed_quietly():
     # a DC offset (-0.17 of full scale) that the gain (x10.7) drives into the
     # negative rail: for the first 22 s the signal sits flat at -1 between
