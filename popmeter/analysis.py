@@ -92,6 +92,12 @@ class Analysis:
     def to_json(self) -> dict[str, Any]:
         """The analysis as a JSON-ready dict, schema ``popmeter.analysis/1``."""
         det = self.detection
+        # (each click's cycle as an index into "cycles": the detector counts
+        # main clicks, the timeline also sets lone clicks aside and fills in
+        # cycles whose click was missed)
+        from popmeter.timeline import cycle_of_times
+
+        cycle_of = cycle_of_times([c.time_s for c in det.clicks], self.timeline.cycles)
         doc: dict[str, Any] = {
             "schema": SCHEMA,
             "popmeter_version": __version__,
@@ -109,11 +115,11 @@ class Analysis:
                     "level_dbfs": c.level_dbfs,
                     "strength": c.strength,
                     "kind": c.kind,
-                    "cycle": c.cycle,
+                    "cycle": cycle,
                     "ring_hz": c.ring_hz,
                     "decay_s": c.decay_s,
                 }
-                for c in det.clicks
+                for c, cycle in zip(det.clicks, cycle_of)
             ],
             "cycles": _flat_dicts(self.timeline.cycles),
             "phases": [_plain(p) for p in self.timeline.phases],

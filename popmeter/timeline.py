@@ -58,6 +58,7 @@ __all__ = [
     "Stall",
     "Timeline",
     "build_timeline",
+    "cycle_of_times",
     "rolling_median",
 ]
 
@@ -235,6 +236,38 @@ def rolling_median(values: np.ndarray, window: int, *, shrink_edges: bool = True
             out[i] = out[half]
             out[n - 1 - i] = out[n - 1 - half]
     return out
+
+
+def cycle_of_times(times_s: Sequence[float], cycles: Sequence[Cycle]) -> list[int | None]:
+    """The index in ``cycles`` of the cycle holding each time, or None.
+
+    Cycle ``i`` holds ``start_s <= t < start_s + period_s``: its main click
+    (at its start) and a two-click engine's second click.  A time in no
+    cycle gives None: a lone click set aside before or after the run, a
+    click in a stall, the last main click (it starts no complete cycle).
+    ``cycles`` in time order, as :func:`build_timeline` gives them (cycles
+    filled in inside a gap count, so the index is the cycle's, not the
+    main click's).
+
+    Parameters
+    ----------
+    times_s : sequence of float
+        Times (s) from the start of the recording, any order.
+    cycles : sequence of Cycle
+
+    Returns
+    -------
+    list of int or None
+        One entry per time.
+    """
+    t = np.asarray(times_s, dtype=float)
+    if not len(cycles):
+        return [None] * t.size
+    starts = np.array([c.start_s for c in cycles], dtype=float)
+    ends = starts + np.array([c.period_s for c in cycles], dtype=float)
+    i = np.searchsorted(starts, t, side="right") - 1
+    inside = (i >= 0) & (t < ends[np.maximum(i, 0)])
+    return [int(k) if ok else None for k, ok in zip(i.tolist(), inside.tolist())]
 
 
 def _true_runs(mask: np.ndarray) -> np.ndarray:

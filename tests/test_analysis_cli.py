@@ -167,3 +167,41 @@ def test_json_cycles_equal_dataclasses_asdict(recording: Path) -> None:
     # and the plain values pass through unchanged, NaN and infinities become null
     assert _json_clean({"a": [1, "x", None, 2.5, float("nan"), float("-inf"), True]}) == {
         "a": [1, "x", None, 2.5, None, None, True]}
+
+
+def test_each_click_s_cycle_indexes_the_cycle_that_holds_it(tmp_path: Path) -> None:
+    # a splash during heating (a lone click the timeline sets aside) and a
+    # two-click engine with stalls (clicks in no cycle, cycles filled in
+    # across missed clicks): a click's "cycle" is the index in "cycles" of
+    # the cycle holding it, null outside every cycle
+    import soundfile as sf
+
+    from popmeter import synth
+
+    sc = synth.RunScenario(duration_s=40.0, heating_s=10.0, click_to_noise_db=25.0, seed=3,
+                           distractors=(synth.Distractor("splash", time_s=4.0),))
+    x, _ = synth.render(sc)
+    lone = tmp_path / "splash.wav"
+    sf.write(lone, x, sc.sample_rate_hz, subtype="PCM_16")
+    two = tmp_path / "two.wav"
+    simulate_to_file(two, boat=BOAT, seed=2, duration_s=40.0, clicks_per_cycle=2, stalls=1,
+                     click_to_noise_db=20.0)
+    for path in (lone, two):
+        doc = analyze_file(path).to_json()
+        cycles = doc["cycles"]
+        held = [c for c in doc["clicks"] if c["cycle"] is not None]
+        assert len(held) >= 0.95 * len(doc["clicks"])
+        for c in held:
+            cyc = cycles[c["cycle"]]
+            assert cyc["start_s"] <= c["time_s"] < cyc["start_s"] + cyc["period_s"]
+        # (a main click the timeline set aside as an extra one inside a cycle,
+        # a double trigger, is held by that cycle without starting it)
+        mains = [c for c in held if c["kind"] == 0]
+        starting = [c for c in mains if c["time_s"] == cycles[c["cycle"]]["start_s"]]
+        assert len(starting) >= 0.98 * len(mains)
+        # the last main click starts no complete cycle
+        last_main = [c for c in doc["clicks"] if c["kind"] == 0][-1]
+        assert last_main["cycle"] is None
+    doc = analyze_file(lone).to_json()
+    assert [c["cycle"] for c in doc["clicks"] if c["time_s"] < 9.0] == [None, None]
+    assert any(cyc["missed_clicks"] for cyc in doc["cycles"])  # (filled-in cycles)

@@ -579,3 +579,25 @@ def test_against_generator_truth():
         assert abs(s["steady_start_s"] - phases["steady"]["start_s"]) <= edge_tolerance_s(startup)
         assert abs(s["steady_end_s"] - phases["steady"]["end_s"]) <= edge_tolerance_s(fade)
         assert s["stalls"] == len(truth["stalls"])
+
+
+def test_cycle_of_times_equals_a_search_of_every_cycle():
+    # reference: for each time, the one cycle with start <= t < start + period
+    # found by looking at every cycle (brute force); cycles with gaps
+    # between them (stalls) and times before, between and after them
+    from popmeter.timeline import Cycle, cycle_of_times
+
+    rng = np.random.default_rng(5)
+    starts = np.cumsum(rng.uniform(0.05, 0.1, 60)) + 2.0
+    periods = np.diff(np.append(starts, starts[-1] + 0.08))
+    periods[[10, 30]] *= 0.5  # (two gaps: the cycle ends before the next starts)
+    cycles = [Cycle(start_s=float(s), period_s=float(p), rate_hz=1.0 / float(p), phase="steady")
+              for s, p in zip(starts, periods)]
+    times = np.concatenate([rng.uniform(0.0, starts[-1] + 1.0, 400), starts])
+    expected = []
+    for t in times:
+        inside = [i for i, c in enumerate(cycles) if c.start_s <= t < c.start_s + c.period_s]
+        assert len(inside) <= 1
+        expected.append(inside[0] if inside else None)
+    assert cycle_of_times(times, cycles) == expected
+    assert cycle_of_times([1.0, 2.5], []) == [None, None]
