@@ -323,24 +323,23 @@ def speed(tmp: str, minutes: float) -> None:
     _librosa_path(path)  # warm-up: numba compilation and caches
     steps = _fixed_steps(path)
     t_steps: dict[str, list[float]] = {name: [] for name in steps}
-    t_all, t_ours, t_lib, t_noscan = [], [], [], []
-    for _ in range(5):  # (interleaved: a slow spell of the machine hits every path)
-        for name, step in steps.items():
+    t_all: list[float] = []
+    t_ours: list[float] = []
+    t_lib: list[float] = []
+    t_noscan: list[float] = []
+    # (interleaved: a slow spell of the machine hits every path; the order
+    # reversed every other round, as a path run after seconds of busy CPU
+    # was often slower here, librosa's most)
+    paths = [*((step, t_steps[name]) for name, step in steps.items()),
+             (lambda: analyze_file(path), t_all),
+             (lambda: _analyze_equivalent(path), t_ours),
+             (lambda: _librosa_path(path), t_lib),
+             (lambda: _analyze_equivalent(path, template_scan=False), t_noscan)]
+    for k in range(5):
+        for run, times in (paths if k % 2 == 0 else paths[::-1]):
             t0 = time.perf_counter()
-            step()
-            t_steps[name].append(time.perf_counter() - t0)
-        t0 = time.perf_counter()
-        analyze_file(path)
-        t_all.append(time.perf_counter() - t0)
-        t0 = time.perf_counter()
-        _analyze_equivalent(path)
-        t_ours.append(time.perf_counter() - t0)
-        t0 = time.perf_counter()
-        _librosa_path(path)
-        t_lib.append(time.perf_counter() - t0)
-        t0 = time.perf_counter()
-        _analyze_equivalent(path, template_scan=False)
-        t_noscan.append(time.perf_counter() - t0)
+            run()
+            times.append(time.perf_counter() - t0)
     w, a, b, c = min(t_all), min(t_ours), min(t_lib), min(t_noscan)
     print(f"\n== speed: {dur:.0f} s, 48 kHz mono 16-bit WAV, best of 5 (one process, "
           "thread pools set to 1: one core) ==")
