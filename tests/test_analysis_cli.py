@@ -186,8 +186,8 @@ def test_each_click_s_cycle_indexes_the_cycle_that_holds_it(tmp_path: Path) -> N
     two = tmp_path / "two.wav"
     simulate_to_file(two, boat=BOAT, seed=2, duration_s=40.0, clicks_per_cycle=2, stalls=1,
                      click_to_noise_db=20.0)
-    for path in (lone, two):
-        doc = analyze_file(path).to_json()
+    docs = {path: analyze_file(path).to_json() for path in (lone, two)}
+    for doc in docs.values():
         cycles = doc["cycles"]
         held = [c for c in doc["clicks"] if c["cycle"] is not None]
         assert len(held) >= 0.95 * len(doc["clicks"])
@@ -202,6 +202,6 @@ def test_each_click_s_cycle_indexes_the_cycle_that_holds_it(tmp_path: Path) -> N
         # the last main click starts no complete cycle
         last_main = [c for c in doc["clicks"] if c["kind"] == 0][-1]
         assert last_main["cycle"] is None
-    doc = analyze_file(lone).to_json()
+    doc = docs[lone]
     assert [c["cycle"] for c in doc["clicks"] if c["time_s"] < 9.0] == [None, None]
     assert any(cyc["missed_clicks"] for cyc in doc["cycles"])  # (filled-in cycles)
