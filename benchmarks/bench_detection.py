@@ -232,6 +232,23 @@ def _analyze_equivalent(path: str, **options) -> int:
     return len(res.clicks)
 
 
+def _timed_rounds(runs: list, rounds: int) -> list[list[float]]:
+    """Wall times (s) of each callable of ``runs`` over ``rounds`` rounds, one list per run.
+
+    Each round calls every run once, in reverse order every other round: a
+    path run after seconds of busy CPU was often slower on this machine
+    (librosa's the most), and so no path always follows the same ones.
+    """
+    times: list[list[float]] = [[] for _ in runs]
+    order = list(range(len(runs)))
+    for k in range(rounds):
+        for i in (order if k % 2 == 0 else order[::-1]):
+            t0 = time.perf_counter()
+            runs[i]()
+            times[i].append(time.perf_counter() - t0)
+    return times
+
+
 def _librosa_path(path: str) -> int:
     import librosa
 
@@ -322,24 +339,12 @@ def speed(tmp: str, minutes: float) -> None:
     analyze_file(path)
     _librosa_path(path)  # warm-up: numba compilation and caches
     steps = _fixed_steps(path)
-    t_steps: dict[str, list[float]] = {name: [] for name in steps}
-    t_all: list[float] = []
-    t_ours: list[float] = []
-    t_lib: list[float] = []
-    t_noscan: list[float] = []
-    # (interleaved: a slow spell of the machine hits every path; the order
-    # reversed every other round, as a path run after seconds of busy CPU
-    # was often slower here, librosa's most)
-    paths = [*((step, t_steps[name]) for name, step in steps.items()),
-             (lambda: analyze_file(path), t_all),
-             (lambda: _analyze_equivalent(path), t_ours),
-             (lambda: _librosa_path(path), t_lib),
-             (lambda: _analyze_equivalent(path, template_scan=False), t_noscan)]
-    for k in range(5):
-        for run, times in (paths if k % 2 == 0 else paths[::-1]):
-            t0 = time.perf_counter()
-            run()
-            times.append(time.perf_counter() - t0)
+    # (interleaved: a slow spell of the machine hits every path)
+    *step_times, t_all, t_ours, t_lib, t_noscan = _timed_rounds(
+        [*steps.values(), lambda: analyze_file(path), lambda: _analyze_equivalent(path),
+         lambda: _librosa_path(path),
+         lambda: _analyze_equivalent(path, template_scan=False)], 5)
+    t_steps = dict(zip(steps, step_times))
     w, a, b, c = min(t_all), min(t_ours), min(t_lib), min(t_noscan)
     print(f"\n== speed: {dur:.0f} s, 48 kHz mono 16-bit WAV, best of 5 (one process, "
           "thread pools set to 1: one core) ==")
@@ -401,16 +406,12 @@ def kinds(tmp: str, dur: float) -> None:
         paths[name] = os.path.join(tmp, f"kind{i}.wav")
         sf.write(paths[name], x, 48000, subtype="PCM_16")
     paths["two-click engine, speech, splash, hum, 20 dB"] = os.path.join(tmp, "speed.wav")
-    times: dict[str, list[float]] = {name: [] for name in paths}
-    t_lib: dict[str, list[float]] = {name: [] for name in paths}
-    for _ in range(3):
-        for name, path in paths.items():
-            t0 = time.perf_counter()
-            analyze_file(path)
-            times[name].append(time.perf_counter() - t0)
-            t0 = time.perf_counter()
-            _librosa_path(path)
-            t_lib[name].append(time.perf_counter() - t0)
+    runs = []
+    for path in paths.values():
+        runs += [lambda path=path: analyze_file(path), lambda path=path: _librosa_path(path)]
+    rounds = _timed_rounds(runs, 3)
+    times = dict(zip(paths, rounds[0::2]))
+    t_lib = dict(zip(paths, rounds[1::2]))
     print(f"by kind of recording ({dur:.0f} s each, best of 3, interleaved):")
     print(f"  {'recording':45s} {'analyze':>8s} {'x real':>7s} {'librosa':>8s} {'ratio':>6s}")
     for name in paths:
@@ -496,34 +497,24 @@ def stages(path: str) -> None:
 
 
 _FINE_CHILD = """
-import sys, time
+import sys
 sys.path.insert(0, sys.argv[2])
 import bench_detection
-bench_detection._librosa_fine_path(sys.argv[1])
-times = []
-for _ in range(3):
-    t0 = time.perf_counter()
-    bench_detection._librosa_fine_path(sys.argv[1])
-    times.append(time.perf_counter() - t0)
-print(min(times))
+run = lambda: bench_detection._librosa_fine_path(sys.argv[1])
+run()
+print(min(bench_detection._timed_rounds([run], 3)[0]))
 """
 
 _KEPT_HEAP_CHILD = """
-import sys, time
+import sys
 sys.path.insert(0, sys.argv[2])
 import bench_detection
 from popmeter.analysis import analyze_file
-paths = {"analyze": lambda: analyze_file(sys.argv[1]),
-         "librosa": lambda: bench_detection._librosa_path(sys.argv[1])}
-for run in paths.values():
+runs = [lambda: analyze_file(sys.argv[1]), lambda: bench_detection._librosa_path(sys.argv[1])]
+for run in runs:
     run()
-times = {name: [] for name in paths}
-for k in range(6):  # (each path first in every other round)
-    for name in (list(paths) if k % 2 == 0 else list(paths)[::-1]):
-        t0 = time.perf_counter()
-        paths[name]()
-        times[name].append(time.perf_counter() - t0)
-print(min(times["analyze"]), min(times["librosa"]))
+t_analyze, t_librosa = bench_detection._timed_rounds(runs, 6)
+print(min(t_analyze), min(t_librosa))
 """
 
 # glibc's malloc keeping freed memory (no arrays handed back to the system

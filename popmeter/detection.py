@@ -2991,10 +2991,18 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
         return []
     times = np.array([c.time_s for c in kept])
     far = _log_distance([c.ring_hz for c in pool], np.array(centres)) > width
-    at = np.searchsorted(times, [c.time_s for c in pool]).tolist()
+    pool_t = np.array([c.time_s for c in pool])
+    at = np.searchsorted(times, pool_t).tolist()
+    # (a candidate 3 ms to the refractory time from a find of the filter)
+    beside = np.zeros(pool_t.size, dtype=bool)
+    if found_s is not None and found_s.size:
+        q = np.searchsorted(found_s, pool_t)
+        for m in (q - 1, q):
+            d = np.abs(found_s[np.clip(m, 0, found_s.size - 1)] - pool_t)
+            beside |= (m >= 0) & (m < found_s.size) & (d >= 0.003) & (d < refractory_s)
     times_list = times.tolist()
     out: list[Click] = []
-    for c, j, apart in zip(pool, at, far.tolist()):
+    for c, j, apart, by_find in zip(pool, at, far.tolist(), beside.tolist()):
         if apart:
             continue
         near = [abs(times_list[m] - c.time_s) for m in (j - 1, j) if 0 <= m < len(times_list)]
@@ -3002,11 +3010,8 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
             continue
         if out and c.time_s - out[-1].time_s < refractory_s:
             continue
-        if found_s is not None and found_s.size:
-            q = int(np.searchsorted(found_s, c.time_s))
-            if any(0.003 <= abs(float(found_s[m]) - c.time_s) < refractory_s
-                   for m in (q - 1, q) if 0 <= m < found_s.size):
-                continue
+        if by_find:
+            continue
         if j > 0:
             # a copy of the click just before (its ring, 9 dB or more weaker,
             # within 60 ms) is that click's echo from the room, not a click
@@ -3687,13 +3692,13 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
             rejected += len(lone)
             rejected_times = sorted(rejected_times + [c.time_s for c in lone])
     have_mf = atypical and det._mf is not None and bool(det._mf.clicks)
+    mf_times = np.array([c.time_s for c in det._mf.clicks]) if have_mf else np.zeros(0)
     if atypical and det._second_look:
         # (the matched filter's finds the accepted clicks do not already hold:
         # a rejected candidate near one of them, but not the same click, is
         # not promoted; see _second_look)
         mf_new = None
         if have_mf and len(kept) >= 8:
-            mf_times = np.array([c.time_s for c in det._mf.clicks])
             mf_new = np.sort(mf_times[_unseen([c.time_s for c in kept], mf_times)])
         promoted = _second_look(kept, det._second_look,
                                 refractory_s=det._refr * det.hop / det.sample_rate_hz,
@@ -3718,7 +3723,6 @@ def _result(clicks: list[Click], rejected: int, rejected_times: list[float],
         last = times[-1] + (float(np.median(gaps)) if gaps.size else 0.0)
         fits: dict[int, float] = {}
         slots: dict[int, int] = {}
-        mf_times = np.array([c.time_s for c in det._mf.clicks])
         unseen = _unseen(times, mf_times) & ~(mf_times > last)  # (both templates' finds)
         for c, fit, si, is_guided, is_unseen in zip(det._mf.clicks, det._mf.click_fit,
                                                     det._mf.click_slot, det._mf.click_guided,

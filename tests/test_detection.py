@@ -1322,15 +1322,21 @@ def test_second_look_promotes_no_candidate_a_few_ms_from_a_matched_filter_find()
     assert len(_second_look(kept, answers, refractory_s=0.0125, found_s=same)) == 10
 
 
+def _two_click_room(seed):
+    """30 s of a two-click engine (16 Hz) in a reverberant room (rt60 0.5 s), 30 dB, every
+    pop at the stated level."""
+    return _render_full(duration_s=30.0, click_to_noise_db=30.0, seed=seed, clicks_per_cycle=2,
+                        reverb_rt60_s=0.5, steady_rate_hz=16.0, startup_level_db=0.0,
+                        fade_level_db=0.0, weak_pop_prob=0.0)
+
+
 def test_two_click_engine_in_a_room_keeps_its_second_clicks_over_the_rooms_answer():
     # generator, 30 s, reverberant room (rt60 0.5 s), 30 dB, every pop at the
     # stated level: the room answers each main click 22 ms later, 6 ms before
     # the second click; where the frame stage rejected that answer and missed
     # the second click, the answer was promoted and hid the matched filter's
     # find of the second click (F 0.855 before, 0.906 after)
-    x, truth, fs = _render_full(duration_s=30.0, click_to_noise_db=30.0, seed=6,
-                                clicks_per_cycle=2, reverb_rt60_s=0.5, steady_rate_hz=16.0,
-                                startup_level_db=0.0, fade_level_db=0.0, weak_pop_prob=0.0)
+    x, truth, fs = _two_click_room(seed=6)
     res = detect_clicks(x, fs)
     assert res.clicks_per_cycle == 2
     f, _, _ = _score(res, truth)
@@ -1360,9 +1366,7 @@ def test_two_click_engine_in_a_room_keeps_the_second_clicks_the_frame_stage_acce
     # clicks' rings, so the start-up's accepted second clicks were dropped as
     # atypical, and the filter, which leaves accepted clicks alone, had not
     # looked for them (second clicks matched: 289 of 306 before, 303 after)
-    x, truth, fs = _render_full(duration_s=30.0, click_to_noise_db=30.0, seed=9,
-                                clicks_per_cycle=2, reverb_rt60_s=0.5, steady_rate_hz=16.0,
-                                startup_level_db=0.0, fade_level_db=0.0, weak_pop_prob=0.0)
+    x, truth, fs = _two_click_room(seed=9)
     res = detect_clicks(x, fs)
     ref = np.array([c["time_s"] for c in truth["clicks"]])
     est = np.array([c.time_s for c in res.clicks])
