@@ -156,6 +156,15 @@ _SAME_RING_LOG = 0.03
 # decisions, three (reverberant rooms at 12-20 dB) were under 40 %, the
 # lowest at 25 %)
 _WEAK_SECOND_SHARE = 0.4
+# the fewest whole cycles (about a third of the fold's 28 s window at 16
+# cycles a second) the free scan's main clicks must leave a fold from its
+# fifth on, before the main clicks found between known ones join them (our
+# own bar, no published source: of the bench's 24 two-click engines in a
+# reverberant room at 12 dB, the 18 whose fold formed a template saw 129-276
+# cycles there, the last folds of the other 6 saw 20-110; letting the
+# fill-ins join every fold, from the first, changed templates that had
+# formed from the surer clicks alone, and made some worse)
+_FOLD_FEW_CYCLES = 150
 
 
 @dataclass(slots=True)
@@ -1141,6 +1150,30 @@ class ClickDetector:
         return float(self._hp_hz)
 
 
+def _whole_cycles(mains: np.ndarray, fs: float) -> tuple[np.ndarray, np.ndarray]:
+    """The whole cycles between sorted main-click onsets: their starts and lengths.
+
+    An interval of about one local period (within 15 % of the median of the
+    9 intervals around it), or of two with the main click between them
+    missed (split at its middle); an interval a second click splits is left
+    out, and so are lengths over 0.5 s or under 10 ms.  ``mains`` and the
+    results are in samples at the rate ``fs`` (Hz); starts int64 in time
+    order, lengths float64.
+    """
+    per = np.diff(mains).astype(np.float64)
+    if per.size == 0:
+        return np.zeros(0, dtype=np.int64), np.zeros(0)
+    med = _median9(per)
+    kk = np.maximum(np.round(per / med), 1.0)
+    ok = ((np.abs(per / (kk * med) - 1.0) <= 0.15) & (kk <= 2) & (per / kk <= 0.5 * fs)
+          & (per / kk >= 0.01 * fs))
+    two = ok & (kk == 2)
+    st = np.concatenate([mains[:-1][ok], np.round(mains[:-1] + per / 2)[two]])
+    T = np.concatenate([(per / kk)[ok], (per / 2)[two]])
+    order = np.argsort(st, kind="stable")
+    return st[order].astype(np.int64), T[order]
+
+
 def _with_neighbours(sel: np.ndarray) -> np.ndarray:
     """A 1-D mask with each True's neighbours set too, circularly (the last bin neighbours the first).
 
@@ -1620,8 +1653,14 @@ class _TemplateScan:
         (split at the middle); an interval a second click splits is left out,
         and nothing is folded when the intervals alternate short and long
         (the frame detector already takes the second clicks: the examples
-        make that template).  The band energy of each cycle (the whole band
-        above 500 Hz, and its octaves from 500 Hz) is cut into 70 bins of
+        make that template).  The clicks are those accepted and those the
+        main template's free scan found; from the fifth fold on, when they
+        leave fewer than ``_FOLD_FEW_CYCLES`` such cycles, the main clicks
+        :meth:`_missed_mains` found between them too (in a reverberant room
+        at a low click-to-noise ratio the free scan misses so many main
+        clicks that most intervals span three periods or more, and the fold
+        never gathers the cycles it needs).  The band energy of each cycle
+        (the whole band above 500 Hz, and its octaves from 500 Hz) is cut into 70 bins of
         phase from 0.1 to 0.8 of the local period (to 0.8 only, so that the
         next main click of a short cycle never folds in), each cycle divided
         by its own median, and the cycles averaged.  Noise averages flat; a
@@ -1681,9 +1720,13 @@ class _TemplateScan:
                  upto - round(self.fold_window_s * fs))
         # every accepted click (in noise a main click's correlation with the
         # template is too uncertain to sort them) and every click the main
-        # template found: the period test below drops the intervals a second
-        # click splits
+        # template's free scan found: the period test below drops the
+        # intervals a second click splits.  From the fifth fold on, when those
+        # leave fewer than _FOLD_FEW_CYCLES whole cycles, the main clicks found
+        # between known ones join them (:meth:`_missed_mains`)
         mains = self._all_clicks(lo, upto, upto)
+        if self._folds > 4 and _whole_cycles(mains, fs)[0].size < _FOLD_FEW_CYCLES:
+            mains = self._all_clicks(lo, upto, upto, filled=True)
         self.fold_info = {"cycles": 0}
         if mains.size < 33:
             return False
@@ -1693,18 +1736,7 @@ class _TemplateScan:
         # fold would only fold half cycles
         if _alternation(np.log(per)[:, None]) < -0.5:
             return False
-        med = _median9(per)
-        # whole cycles: an interval of about one local period, or of two with
-        # the main click between them missed (split at its middle); an
-        # interval a second click splits is left out
-        kk = np.maximum(np.round(per / med), 1.0)
-        ok = ((np.abs(per / (kk * med) - 1.0) <= 0.15) & (kk <= 2) & (per / kk <= 0.5 * fs)
-              & (per / kk >= 0.01 * fs))
-        two = ok & (kk == 2)
-        st = np.concatenate([mains[:-1][ok], np.round(mains[:-1] + per / 2)[two]])
-        T = np.concatenate([(per / kk)[ok], (per / 2)[two]])
-        order = np.argsort(st, kind="stable")
-        st, T = st[order].astype(np.int64), T[order]
+        st, T = _whole_cycles(mains, fs)
         n = int(st.size)
         self.fold_info["cycles"] = n
         if n < 64:
@@ -1918,7 +1950,7 @@ class _TemplateScan:
         """Accepted onsets in [lo, hi) and the main template's finds in [lo, hi_found), sorted.
 
         With ``filled``, the finds of :meth:`_missed_mains` too (the folds
-        read the free scan's finds alone).
+        read them only when the free scan's finds leave too few cycles).
         """
         parts = [_between(self.onsets, lo, hi), _between(self.main_found, lo, hi_found)]
         if filled:
@@ -2258,7 +2290,8 @@ class _TemplateScan:
         self.click_slot.extend([si] * order.size)
         if si == 0:
             # (the main clicks found between known ones are kept apart: the
-            # folds read the free scan's finds alone)
+            # folds read them only when the free scan's finds leave too few
+            # cycles)
             was_filled = _among(order, filled)  # (filled is part of c, here order)
             self.main_found.extend((base + of[~was_filled]).tolist())
             self.filled_found.extend((base + of[was_filled]).tolist())
@@ -2504,8 +2537,9 @@ class _TemplateScan:
         the others, while in a reverberant room at a high click-to-noise
         ratio the room's response, far above the noise floor, stays under
         that.  The finds are main clicks (kind 0); they count for the second
-        clicks' search of a folded template but not for the folds.  Returns
-        indices into ``env``.
+        clicks' search of a folded template, and for a fold only when the
+        free scan's finds leave too few cycles (see :meth:`_fold_second`).
+        Returns indices into ``env``.
         """
         R = self.R
         none = np.zeros(0, dtype=np.int64)

@@ -18,6 +18,7 @@ from popmeter.detection import (
     _sign_test_p,
     _TemplateScan,
     _unseen,
+    _whole_cycles,
     _windows,
     _with_neighbours,
 )
@@ -527,3 +528,17 @@ def test_unseen_equals_the_distance_to_every_time():
             found[:k] = rng.choice(times, k) + rng.uniform(-0.012, 0.012, k)
         expected = np.array([n_t == 0 or np.min(np.abs(times - t)) >= 0.010 for t in found])
         assert np.array_equal(_unseen(times, found), expected)
+
+
+def test_whole_cycles_keeps_one_and_two_period_intervals():
+    # main clicks 1000 samples apart (fs 48 kHz: 48 cycles a second), one
+    # missed (an interval of two periods, split at its middle) and one
+    # interval split by a stray click (450 + 550: neither is a whole cycle)
+    mains = np.array([0, 1000, 2000, 4000, 5000, 5450, 6000, 7000, 8000, 9000, 10000, 11000])
+    st, lengths = _whole_cycles(mains, 48000.0)
+    assert st.tolist() == [0, 1000, 2000, 3000, 4000, 6000, 7000, 8000, 9000, 10000]
+    assert lengths.tolist() == [1000.0] * 10
+    assert st.dtype == np.int64
+    # cycles over 0.5 s are no engine's: none at 1 s a cycle
+    assert _whole_cycles(np.arange(0, 20 * 48000, 48000), 48000.0)[0].size == 0
+    assert _whole_cycles(np.array([5]), 48000.0)[0].size == 0
