@@ -34,8 +34,9 @@ set to one thread (one core); the whole analyze and librosa's path once more
 in a fresh process whose allocator keeps freed memory (librosa's time then
 stops swinging with page faults); the design's first steps alone (reading, the
 full-rate high-pass, the frame stage's STFT) and its per-click work alone (each
-click's onset and features), whose sum is a floor for the whole analyze; the whole analyze and librosa's path on two other kinds of
-recording (background alone, a one-click engine); both paths started as a
+click's onset and features), whose sum is a floor for the whole analyze; the
+whole analyze and librosa's path on two other kinds of recording (background
+alone, a one-click engine); both paths started as a
 user starts them (fresh processes,
 imports included: the ``popmeter analyze`` command line against a Python
 that imports librosa and runs the same two calls); and analyze_file once

@@ -1346,7 +1346,7 @@ def test_two_click_engine_in_a_room_keeps_its_second_clicks_over_the_rooms_answe
 def test_two_click_engine_in_a_room_at_12_db_folds_with_the_main_clicks_filled_in():
     # generator, 60 s, reverberant room (rt60 0.5 s), 12 dB, every pop at the
     # stated level, seed 11: the free scan finds so few main clicks that the
-    # folds' 28 s windows held 110 whole cycles at most, no fold formed a
+    # last fold's 28 s window held 110 whole cycles, no fold formed a
     # template and the engine was taken for a one-click one (F 0.454); from
     # the fifth fold the main clicks found between known ones join the fold
     # (F 0.722)
