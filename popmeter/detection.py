@@ -1720,13 +1720,15 @@ class _TemplateScan:
                  upto - round(self.fold_window_s * fs))
         # every accepted click (in noise a main click's correlation with the
         # template is too uncertain to sort them) and every click the main
-        # template's free scan found: the period test below drops the
-        # intervals a second click splits.  From the fifth fold on, when those
+        # template's free scan found: the whole cycles between them leave out
+        # the intervals a second click splits.  From the fifth fold on, when those
         # leave fewer than _FOLD_FEW_CYCLES whole cycles, the main clicks found
         # between known ones join them (:meth:`_missed_mains`)
         mains = self._all_clicks(lo, upto, upto)
-        if self._folds > 4 and _whole_cycles(mains, fs)[0].size < _FOLD_FEW_CYCLES:
+        st, T = _whole_cycles(mains, fs)
+        if self._folds > 4 and st.size < _FOLD_FEW_CYCLES:
             mains = self._all_clicks(lo, upto, upto, filled=True)
+            st, T = _whole_cycles(mains, fs)
         self.fold_info = {"cycles": 0}
         if mains.size < 33:
             return False
@@ -1736,7 +1738,6 @@ class _TemplateScan:
         # fold would only fold half cycles
         if _alternation(np.log(per)[:, None]) < -0.5:
             return False
-        st, T = _whole_cycles(mains, fs)
         n = int(st.size)
         self.fold_info["cycles"] = n
         if n < 64:
