@@ -3029,12 +3029,8 @@ def _second_look(kept: list[Click], pool: list[Click], *, refractory_s: float,
     pool_t = np.array([c.time_s for c in pool])
     at = np.searchsorted(times, pool_t).tolist()
     # (a candidate 3 ms to the refractory time from a find of the filter)
-    beside = np.zeros(pool_t.size, dtype=bool)
-    if found_s is not None and found_s.size:
-        q = np.searchsorted(found_s, pool_t)
-        for m in (q - 1, q):
-            d = np.abs(found_s[np.clip(m, 0, found_s.size - 1)] - pool_t)
-            beside |= (m >= 0) & (m < found_s.size) & (d >= 0.003) & (d < refractory_s)
+    d = _to_neighbours(found_s if found_s is not None else np.zeros(0), pool_t)
+    beside = ((d >= 0.003) & (d < refractory_s)).any(axis=1)
     times_list = times.tolist()
     out: list[Click] = []
     for c, j, apart, by_find in zip(pool, at, far.tolist(), beside.tolist()):
@@ -3066,14 +3062,26 @@ def _unseen(times: np.ndarray | list[float], found: np.ndarray | list[float], *,
     ``times`` sorted (seconds); the matched filter's finds that the clicks
     already held are those within 10 ms of one of them.
     """
+    return ~(_to_neighbours(times, found) < within_s).any(axis=1)
+
+
+def _to_neighbours(times: np.ndarray | list[float], t: np.ndarray | list[float]) -> np.ndarray:
+    """Each of ``t``'s distances to its neighbours among the sorted ``times``, shape (len(t), 2).
+
+    Column 0 to the last of ``times`` before it, column 1 to the first at
+    or after it (``numpy.searchsorted``'s split); infinite where there is
+    none.  Same units as the inputs.
+    """
     times = np.asarray(times, dtype=float)
-    found = np.asarray(found, dtype=float)
-    if not times.size:
-        return np.ones(found.shape, dtype=bool)
-    j = np.searchsorted(times, found)
-    before = np.abs(times[np.maximum(j - 1, 0)] - found) < within_s
-    after = np.abs(times[np.minimum(j, times.size - 1)] - found) < within_s
-    return ~(((j > 0) & before) | ((j < times.size) & after))
+    t = np.asarray(t, dtype=float).reshape(-1)
+    d = np.full((t.size, 2), np.inf)
+    if times.size:
+        j = np.searchsorted(times, t)
+        has = j > 0
+        d[has, 0] = np.abs(times[j[has] - 1] - t[has])
+        has = j < times.size
+        d[has, 1] = np.abs(times[j[has]] - t[has])
+    return d
 
 
 def assign_kinds(clicks: list[Click], *, clicks_per_cycle: int | None = None
